@@ -1,0 +1,135 @@
+"""Parquet and file helpers: atomic writes, relcorr metadata, hashes.
+
+Every file relcorr writes goes to a temporary name beside its final path and
+is renamed into place only when complete, so a reader (or a resumed run)
+never sees half a file.  Temporary names start with ``.`` and contain
+``.tmp-``; ``clean_stray_temporaries`` removes those an interrupted run left.
+"""
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import json
+import os
+from pathlib import Path
+from typing import Any, Iterator
+
+import pyarrow as pa
+import pyarrow.parquet as pq
+
+META_PREFIX = b"relcorr."
+
+
+def sha256_file(path: str | Path, chunk: int = 1 << 20) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        while True:
+            block = fh.read(chunk)
+            if not block:
+                break
+            h.update(block)
+    return h.hexdigest()
+
+
+def canonical_json(obj: Any) -> str:
+    """JSON with sorted keys and no whitespace: the input of every fingerprint."""
+    return json.dumps(obj, sort_keys=True, separators=(",", ":"), ensure_ascii=True, allow_nan=False)
+
+
+def _tmp_path(path: Path) -> Path:
+    return path.with_name(f".{path.name}.tmp-{os.getpid()}")
+
+
+def clean_stray_temporaries(path: str | Path) -> None:
+    """Remove temporary files an interrupted writer of ``path`` left behind."""
+    path = Path(path)
+    if path.parent.is_dir():
+        for stray in path.parent.glob(f".{path.name}.tmp-*"):
+            with contextlib.suppress(FileNotFoundError):
+                stray.unlink()
+
+
+@contextlib.contextmanager
+def atomic_path(path: str | Path) -> Iterator[Path]:
+    """Yield a temporary path; rename it to ``path`` if the block succeeds, delete it if not."""
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    clean_stray_temporaries(path)
+    tmp = _tmp_path(path)
+    try:
+        yield tmp
+        os.replace(tmp, path)
+    finally:
+        with contextlib.suppress(FileNotFoundError):
+            tmp.unlink()
+
+
+def write_json_atomic(path: str | Path, obj: Any) -> None:
+    with atomic_path(path) as tmp:
+        tmp.write_text(json.dumps(obj, indent=2, sort_keys=False, allow_nan=False) + "\n")
+
+
+def relcorr_metadata(meta: dict[str, Any]) -> dict[bytes, bytes]:
+    """Key-value metadata for a Parquet file: each value JSON-encoded under relcorr.KEY."""
+    return {META_PREFIX + k.encode(): canonical_json(v).encode() for k, v in meta.items()}
+
+
+def read_relcorr_metadata(path: str | Path) -> dict[str, Any] | None:
+    """The relcorr.* metadata of a Parquet file, or None if unreadable."""
+    try:
+        md = pq.read_metadata(path).metadata or {}
+    except (OSError, pa.ArrowException):
+        return None
+    out = {}
+    for k, v in md.items():
+        if k.startswith(META_PREFIX):
+            try:
+                out[k[len(META_PREFIX):].decode()] = json.loads(v)
+            except ValueError:
+                return None
+    return out
+
+
+class AtomicParquetWriter:
+    """Write a Parquet file batch by batch; it appears under its name only on close().
+
+    Deterministic: the same tables in the same order give the same bytes.
+    """
+
+    def __init__(self, path: str | Path, schema: pa.Schema, metadata: dict[str, Any]):
+        self.path = Path(path)
+        self.path.parent.mkdir(parents=True, exist_ok=True)
+        clean_stray_temporaries(self.path)
+        self.tmp = _tmp_path(self.path)
+        self.schema = schema.with_metadata({**(schema.metadata or {}), **relcorr_metadata(metadata)})
+        self.rows = 0
+        self._writer = pq.ParquetWriter(self.tmp, self.schema, compression="zstd", write_statistics=True)
+
+    def write(self, table: pa.Table) -> None:
+        if table.num_rows:
+            if not table.schema.equals(self.schema, check_metadata=False):
+                table = table.select(self.schema.names).cast(self.schema)
+            self._writer.write_table(table)
+            self.rows += table.num_rows
+
+    def close(self, extra_metadata: dict[str, Any] | None = None) -> None:
+        """Finish the file (adding footer metadata known only at the end) and rename it into place."""
+        if extra_metadata:
+            self._writer.add_key_value_metadata({k.decode(): v.decode() for k, v in relcorr_metadata(extra_metadata).items()})
+        self._writer.close()
+        os.replace(self.tmp, self.path)
+
+    def abort(self) -> None:
+        with contextlib.suppress(Exception):
+            self._writer.close()
+        with contextlib.suppress(FileNotFoundError):
+            self.tmp.unlink()
+
+    def __enter__(self) -> "AtomicParquetWriter":
+        return self
+
+    def __exit__(self, exc_type, exc, tb) -> None:
+        if exc_type is None:
+            self.close()
+        else:
+            self.abort()

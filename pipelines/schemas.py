@@ -1,0 +1,98 @@
+"""Raw record schemas (tracking and clock) and the columns ingest adds.
+
+The names are relcorr's own; README.md, "Record schemas", documents them.
+A raw file may carry extra columns: they are kept untouched.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import pyarrow as pa
+
+from stages.base import Column
+
+
+@dataclass(frozen=True)
+class RawColumn:
+    name: str
+    kind: str          # "id", "text", "time", "number"
+    required: bool
+    unit: str
+    description: str
+
+
+TRACKING = (
+    RawColumn("record_id", "id", True, "", "unique identifier of the record (string or integer)"),
+    RawColumn("station", "text", True, "", "receiving station (the station whose clock tagged the record)"),
+    RawColumn("target", "text", True, "", "spacecraft or solar-system body tracked"),
+    RawColumn("observable", "text", True, "", "observable type, see TRACKING_OBSERVABLES"),
+    RawColumn("time_tag", "time", True, "UTC", "reception time, UTC (Arrow timestamp or ISO 8601 string)"),
+    RawColumn("value", "number", True, "see unit", "observed value"),
+    RawColumn("unit", "text", True, "", "unit of value and uncertainty: s, m or Hz"),
+    RawColumn("uncertainty", "number", True, "see unit", "one-sigma uncertainty of value (>= 0)"),
+    RawColumn("transmit_station", "text", False, "", "transmitting station of three-way records"),
+)
+
+CLOCK = (
+    RawColumn("record_id", "id", True, "", "unique identifier of the record (string or integer)"),
+    RawColumn("remote_clock", "text", True, "", "the clock being characterised (e.g. on board a satellite)"),
+    RawColumn("reference_clock", "text", True, "", "the ground reference clock it is compared with"),
+    RawColumn("time_tag", "time", True, "UTC", "measurement epoch, UTC (Arrow timestamp or ISO 8601 string)"),
+    RawColumn("observable", "text", True, "", "time_offset (remote - reference, s) or fractional_frequency (remote - reference, dimensionless)"),
+    RawColumn("value", "number", True, "s or 1", "observed value"),
+    RawColumn("uncertainty", "number", True, "s or 1", "one-sigma uncertainty of value (>= 0)"),
+    RawColumn("averaging_s", "number", False, "s", "averaging interval of fractional_frequency records (> 0)"),
+)
+
+SCHEMAS = {"tracking": TRACKING, "clock": CLOCK}
+
+# observable -> allowed units
+TRACKING_OBSERVABLES = {
+    "range_one_way": ("s", "m"),
+    "range_two_way": ("s", "m"),
+    "range_three_way": ("s", "m"),
+    "doppler_one_way": ("Hz",),
+    "doppler_two_way": ("Hz",),
+    "doppler_three_way": ("Hz",),
+}
+CLOCK_OBSERVABLES = ("time_offset", "fractional_frequency")
+
+# the columns ingest adds to every record
+INGEST_COLUMNS = (
+    Column("utc_mjd", pa.int32(), "d", "UTC calendar day of the time tag, Modified Julian Date"),
+    Column("utc_sod_ps", pa.int64(), "ps", "time of day of the time tag, UTC picoseconds since 00:00 (>= 86400e12 inside a leap second)"),
+    Column("source_row", pa.int64(), "", "0-based row of the record in its raw input file"),
+    Column("ledger", pa.string(), "", "steps that touched the record, as name@version joined by ';'"),
+)
+
+# reason codes of records quarantined by ingest
+INGEST_REASONS = {
+    "time_tag_missing": "time tag is null or empty",
+    "time_tag_unparseable": "time tag is not ISO 8601 UTC as accepted (see README)",
+    "time_tag_invalid_field": "a date or time field is out of range (e.g. 2021-02-29, 24:00:00, 12:59:60)",
+    "time_tag_not_utc": "time tag carries a UTC offset other than zero",
+    "time_tag_out_of_span": "time tag before 1972-01-01 or after the expiry of the leap-second table",
+    "leap_second_invalid": "23:59:60 on a day that had no leap second",
+    "record_id_missing": "record id is null or empty",
+    "record_id_duplicate": "record id already used by an earlier record of the same input (first one kept)",
+    "station_missing": "station (or transmit station of a three-way record) is null or empty",
+    "target_missing": "target is null or empty",
+    "clock_missing": "remote or reference clock is null or empty",
+    "observable_unknown": "observable type is not one of the documented ones",
+    "unit_invalid": "unit does not fit the observable",
+    "value_not_finite": "value is null, NaN or infinite",
+    "uncertainty_invalid": "uncertainty is null, NaN, infinite or negative",
+    "averaging_invalid": "fractional-frequency record without a positive finite averaging interval",
+}
+
+
+def ingest_columns(record_kind: str) -> dict[str, pa.DataType | None]:
+    """Columns every record has after ingest (None: type varies with the input)."""
+    cols: dict[str, pa.DataType | None] = {}
+    for c in SCHEMAS[record_kind]:
+        if not c.required:
+            continue
+        cols[c.name] = {"text": pa.string(), "number": pa.float64(), "id": None, "time": None}[c.kind]
+    for c in INGEST_COLUMNS:
+        cols[c.name] = c.type
+    return cols
