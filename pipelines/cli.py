@@ -8,7 +8,7 @@ import argparse
 import logging
 import secrets
 import sys
-import time
+from datetime import datetime, timezone
 import traceback
 from pathlib import Path
 
@@ -16,6 +16,13 @@ from pipelines.errors import (EXIT_BALANCE, EXIT_CONFIG, EXIT_INTERNAL, EXIT_OK,
                               RelcorrError)
 
 DEMO_CONFIG = "demo.toml"
+
+
+def _quiet_imports() -> None:
+    import warnings
+
+    # luigi announces a change of default at import time; relcorr does not use range tasks
+    warnings.filterwarnings("ignore", message=r"\s*Autoloading range tasks", category=DeprecationWarning)
 
 
 def _offline() -> None:
@@ -107,6 +114,7 @@ def run_config(config: str, base_dir: str | None = None, workers: int = 1, sched
     from pipelines.plan import load_plan
     from pipelines.tasks import FingerprintTarget, RunAll
 
+    load_plan.cache_clear()  # a new run sees the inputs as they are now
     cfg = _load(config, base_dir)
     if cfg.demo is not None and not cfg.input_files:
         written = demo.generate(cfg)
@@ -115,7 +123,8 @@ def run_config(config: str, base_dir: str | None = None, workers: int = 1, sched
     elif not cfg.input_files:
         resolve_inputs(cfg)  # raises the ConfigError naming the pattern
     started = utc_now()
-    run_id = time.strftime("%Y%m%dT%H%M%SZ", time.gmtime()) + f"-{cfg.sha256[:8]}-{secrets.token_hex(2)}"
+    # sortable by start time, unique across concurrent runs
+    run_id = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%S%fZ") + f"-{cfg.sha256[:8]}-{secrets.token_hex(2)}"
     plan = load_plan(str(cfg.path), cfg.sha256, str(cfg.base_dir))
     print(f"run {run_id}: {cfg.name}, {len(plan.partitions)} partition(s), stages: "
           + (", ".join(s.name for s in cfg.stages) or "none"))
@@ -239,6 +248,7 @@ def build_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
+    _quiet_imports()
     ap = build_parser()
     args = ap.parse_args(argv)
     if getattr(args, "workers", 1) < 1:

@@ -175,10 +175,12 @@ def _hash_chunk(arr: pa.Array) -> np.ndarray:
             valid = np.asarray(pc.is_valid(arr.indices).to_numpy(zero_copy_only=False), dtype=bool)
             h[~valid] = NULL_HASH
         return h
+    if pa.types.is_null(t):  # an all-null column
+        return np.full(len(arr), NULL_HASH, dtype=np.uint64)
     if pa.types.is_string_view(t) or pa.types.is_binary_view(t):
         large = pa.large_string() if pa.types.is_string_view(t) else pa.large_binary()
         return _hash_chunk(arr.cast(large))
-    elif (
+    if (
         pa.types.is_string(t)
         or pa.types.is_large_string(t)
         or pa.types.is_binary(t)
@@ -191,7 +193,7 @@ def _hash_chunk(arr: pa.Array) -> np.ndarray:
         raise TypeError(
             f"record ids must be string, binary or integer, found {t} "
             "(accepted: string, large_string, string_view, binary variants, "
-            "integer types, optionally dictionary-encoded)"
+            "integer types, optionally dictionary-encoded; all-null columns)"
         )
     h[h == NULL_HASH] = _NULL_ALIAS
     if arr.null_count:
