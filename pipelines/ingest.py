@@ -240,16 +240,16 @@ def iter_ingest(path: str | Path, record_kind: str, leap: LeapTable, batch_rows:
             rc, mjd, sod_ps = classify_batch(table, record_kind, leap, dup)
             bad = rc.bad()
             good = ~bad
-            keep = pa.array(good)
-            out = table.filter(keep)
+            any_bad = bool(bad.any())
+            out = table.filter(pa.array(good)) if any_bad else table
             for name in ("value", "uncertainty"):
                 if out.schema.field(name).type != pa.float64():
                     out = out.set_column(out.schema.get_field_index(name), name, pc.cast(out[name], pa.float64()))
             out = out.append_column(_field("utc_mjd"), pa.array(mjd[good], pa.int32()))
             out = out.append_column(_field("utc_sod_ps"), pa.array(sod_ps[good], pa.int64()))
             out = out.append_column(_field("source_row"), pa.array(rows[good], pa.int64()))
-            out = out.append_column(_field("ledger"), pa.array(np.full(int(good.sum()), INGEST_TAG, dtype=object), pa.string()))
-            q = table.filter(pa.array(bad))
+            out = out.append_column(_field("ledger"), pa.repeat(pa.scalar(INGEST_TAG, pa.string()), out.num_rows))
+            q = table.filter(pa.array(bad)) if any_bad else table.slice(0, 0)
             q = quarantine_table(q, INGEST_NAME, rc.reasons(bad), rows[bad])
             yield IngestBatch(out, q)
             start += n

@@ -90,6 +90,24 @@ def read_relcorr_metadata(path: str | Path) -> dict[str, Any] | None:
     return out
 
 
+# columns whose values are unique per record: a dictionary would only cost time
+UNIQUE_COLUMNS = frozenset({"record_id", "time_tag"})
+
+
+def dictionary_columns(schema: pa.Schema) -> list[str]:
+    """Columns worth dictionary encoding: text (station, observable, ledger...) and small integers
+    (day numbers, flags).  Floats and 64-bit integers are nearly unique per record: plain encoding."""
+    out = []
+    for f in schema:
+        t = f.type
+        if f.name in UNIQUE_COLUMNS:
+            continue
+        if pa.types.is_string(t) or pa.types.is_large_string(t) or pa.types.is_dictionary(t) or (
+                pa.types.is_integer(t) and t.bit_width < 64):
+            out.append(f.name)
+    return out
+
+
 class AtomicParquetWriter:
     """Write a Parquet file batch by batch; it appears under its name only on close().
 
@@ -103,7 +121,8 @@ class AtomicParquetWriter:
         self.tmp = _tmp_path(self.path)
         self.schema = schema.with_metadata({**(schema.metadata or {}), **relcorr_metadata(metadata)})
         self.rows = 0
-        self._writer = pq.ParquetWriter(self.tmp, self.schema, compression="zstd", write_statistics=True)
+        self._writer = pq.ParquetWriter(self.tmp, self.schema, compression="zstd", write_statistics=True,
+                                        use_dictionary=dictionary_columns(self.schema))
 
     def write(self, table: pa.Table) -> None:
         if table.num_rows:

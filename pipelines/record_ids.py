@@ -18,11 +18,13 @@ Memory
 ------
 Pass 1 keeps only one 8-byte hash per record (a list of ``uint64`` arrays).
 ``finish`` concatenates and sorts one copy of them, so its transient peak is
-~16 bytes per record; afterwards only the candidate rows are kept (their row
-index and hash, 16 bytes per candidate).  Hashing a batch needs temporaries
-of ~24 bytes per id *byte*, but the strings are processed in slices of at
-most ``_BYTES_PER_SLICE`` bytes, so that part is bounded independently of
-the batch size.
+~16 bytes per record (plus ~8 bytes per *repeated* hash value); it then
+releases the per-record hashes batch by batch and keeps only the candidate
+rows (row index and hash: 16 bytes per candidate, plus the 8-byte copy it
+returns).  With few duplicates that is ~16 B/record at peak and ~0 after.
+Hashing a batch needs temporaries of ~24 bytes per id *byte*, but the
+strings are processed in slices of about ``_BYTES_PER_SLICE`` bytes, so that
+part is bounded (~25 MiB) independently of the batch size.
 
 Why two passes
 --------------
@@ -300,15 +302,19 @@ class DuplicateFinder:
         del s
         repeated = np.unique(repeated)
         repeated = repeated[repeated != NULL_HASH]
+        self._hashes = None
         rows, hashes = [], []
-        if repeated.size:
-            for start, h in zip(self._batch_starts, chunks):  # loop over batches
-                i = np.searchsorted(repeated, h)
-                np.minimum(i, repeated.size - 1, out=i)
-                hit = repeated[i] == h
-                rows.append(np.flatnonzero(hit) + start)
-                hashes.append(h[hit])
-        self._hashes = None  # release the per-row hashes
+        for k, start in enumerate(self._batch_starts):  # loop over batches
+            h = chunks[k]
+            chunks[k] = None  # release each batch's hashes once scanned
+            if repeated.size == 0:
+                continue
+            i = np.searchsorted(repeated, h)
+            np.minimum(i, repeated.size - 1, out=i)
+            hit = repeated[i] == h
+            rows.append(np.flatnonzero(hit) + start)
+            hashes.append(h[hit])
+        del chunks, repeated
         if rows:
             self._cand_rows = np.concatenate(rows).astype(np.int64)
             self._cand_hashes = np.concatenate(hashes)

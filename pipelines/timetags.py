@@ -23,7 +23,8 @@ days or seconds, to
 Each record also gets a ``status`` code (``OK`` or a reason why the tag
 cannot be used); ``STATUS_REASON`` maps each code to a stable reason string
 that callers put in quarantine records.  Values of ``mjd``/``sod_ps`` are 0
-for every row whose status is not ``OK``.
+for every row whose status is not ``OK`` (MJD 0 is a real date: always
+select rows by ``status``, never by the values).
 
 Accepted string grammar (anchored, ASCII digits only, no surrounding blanks)::
 
@@ -44,9 +45,11 @@ RFC 3339 section 5.6 allowances.  Status precedence, first match wins:
    outside 1..days-in-month (proleptic Gregorian leap years), hour > 23,
    minute > 59, second > 59 except the exact label ``23:59:60``.
 
-The whole module is vectorised: Arrow compute kernels for the text work and
-numpy integer arithmetic for the calendar; there is no Python loop over
-records (``mjd_sod_to_iso``, a display helper, is the one exception).
+The whole module is vectorised: one anchored Arrow regex match validates
+the text, then the fixed-position digits are read straight from the Arrow
+offsets/data buffers with numpy, and the calendar is numpy integer
+arithmetic.  There is no Python loop over records (``mjd_sod_to_iso``, a
+display helper, is the one exception); ~1.5e6 strings/s on one core.
 """
 
 from __future__ import annotations
