@@ -84,12 +84,15 @@ def _print_plan(cfg, plan) -> None:
 
 def cmd_check(args) -> int:
     _offline()
-    from pipelines.plan import load_plan
+    from pipelines.plan import RunPlan, load_plan
 
+    load_plan.cache_clear()
     cfg = _load(args.config, args.base_dir)
     if not cfg.input_files and cfg.demo is not None:
-        print(f"{cfg.path}: inputs are missing; `relcorr run` will generate the demo scenario first")
-    plan = load_plan(str(cfg.path), cfg.sha256, str(cfg.base_dir))
+        print(f"{cfg.path}: no input file yet; `relcorr run` generates the demo scenario first")
+        plan = RunPlan(cfg, {})
+    else:
+        plan = load_plan(str(cfg.path), cfg.sha256, str(cfg.base_dir))
     _print_plan(cfg, plan)
     print("configuration OK")
     return EXIT_OK

@@ -226,3 +226,39 @@ def test_sample_configs_run(tmp_path, capsys):
         assert m["totals"]["balanced"] and m["totals"]["rows_quarantined"] > 0
         q = pq.read_table(base / "products" / f"{m['partitions'][0]['partition']}.quarantine.parquet")
         assert q.num_rows > 0 and set(q["quarantine_step"].to_pylist()) == {"ingest"}
+
+
+def test_central_scheduler(tmp_path, write_config):
+    """The same tasks against a central luigid (started here on a loopback port)."""
+    import socket
+    import subprocess
+    import sys
+    import time
+
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        port = s.getsockname()[1]
+    luigid = Path(sys.executable).with_name("luigid")
+    logdir = tmp_path / "luigid"
+    logdir.mkdir()  # luigid in the foreground does not create it
+    proc = subprocess.Popen([str(luigid), "--port", str(port), "--logdir", str(logdir),
+                             "--state-path", str(logdir / "state.pickle")],
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    try:
+        deadline = time.monotonic() + 20
+        while True:
+            try:
+                socket.create_connection(("127.0.0.1", port), timeout=0.2).close()
+                break
+            except OSError:
+                assert time.monotonic() < deadline, "luigid did not open its port"
+                assert proc.poll() is None, "luigid exited"
+                time.sleep(0.1)
+        cfg = write_config(CONFIG.format(grid=3600.0))
+        assert main(["run", str(cfg), "--scheduler-host", "127.0.0.1", "--scheduler-port", str(port),
+                     "--workers", "2"]) == EXIT_OK
+        m = manifest(tmp_path)
+        assert m["totals"]["balanced"] and set(statuses(m).values()) == {"ran"}
+    finally:
+        proc.terminate()
+        proc.wait(timeout=10)
