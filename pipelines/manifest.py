@@ -104,6 +104,8 @@ def _step_activity(step: Step, run_id: str, complete: bool) -> dict[str, Any]:
     act["rows_out"] = stats.get("rows_out")
     act["rows_quarantined"] = stats.get("rows_quarantined")
     act["reasons"] = stats.get("reasons", {})
+    if "flags" in stats:
+        act["flags"] = stats["flags"]  # value counts of the stage's per-record status columns
     act["outputs"] = [_file_entity(step.output, "records"), _file_entity(step.quarantine, "quarantine")]
     files_out = act["outputs"][0].get("rows")
     files_q = act["outputs"][1].get("rows")

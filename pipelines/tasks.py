@@ -174,6 +174,7 @@ class StageTask(_PartitionTask):
         writer = AtomicParquetWriter(step.output, pa.schema(list(in_schema) + provided), _meta(step, self.partition, "records"))
         qwriter = AtomicParquetWriter(step.quarantine, ingest_mod.quarantine_schema(in_schema), _meta(step, self.partition, "quarantine"))
         reasons: dict[str, int] = {}
+        flags: dict[str, dict[str, int]] = {c: {} for c in sp.cls.flag_columns}
         tag = sp.cls.tag()
         try:
             for batch in pf.iter_batches(batch_size=cfg.batch_rows):
@@ -182,13 +183,23 @@ class StageTask(_PartitionTask):
                 writer.write(good)
                 qwriter.write(q)
                 _count_reasons(reasons, q)
+                for col, acc in flags.items():
+                    _count_values(acc, good[col])
         except BaseException:
             writer.abort()
             qwriter.abort()
             raise
         stats = {"rows_in": pf.metadata.num_rows, "rows_out": writer.rows, "rows_quarantined": qwriter.rows,
-                 "reasons": dict(sorted(reasons.items()))}
+                 "reasons": dict(sorted(reasons.items())),
+                 "flags": {c: dict(sorted(acc.items())) for c, acc in flags.items()}}
         return self._finish(step, stats, writer, qwriter, started)
+
+
+def _count_values(acc: dict[str, int], column) -> None:
+    if len(column):
+        for item in pc.value_counts(column.combine_chunks() if isinstance(column, pa.ChunkedArray) else column).to_pylist():
+            key = str(item["values"])
+            acc[key] = acc.get(key, 0) + item["counts"]
 
 
 def apply_stage(stage, params, ctx, table: pa.Table, provided: list[pa.Field], tag: str):

@@ -159,6 +159,8 @@ class Stage:
     params: ClassVar[tuple[Param, ...]] = ()
     #: published sources the stage implements (a stage without one is a bug)
     references: ClassVar[tuple[Reference, ...]] = ()
+    #: provided columns holding per-record status flags; the manifest counts their values
+    flag_columns: ClassVar[tuple[str, ...]] = ()
     #: reason codes the stage may quarantine with, and their meaning
     quarantine_reasons: ClassVar[Mapping[str, str]] = {}
 

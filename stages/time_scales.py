@@ -84,6 +84,7 @@ class TimeScales(Stage):
         Reference("Fairhead & Bretagnon 1990, A&A 229, 240; Moyer 1981, Cel. Mech. 23, 33; as IAU SOFA/ERFA dtdb",
                   "TDB - TT series and topocentric terms"),
     )
+    flag_columns = ("tdb_site", "eop_status")
     quarantine_reasons = {
         "eop_beyond_table": "topocentric TDB needs UT1 beyond the Earth-orientation table "
                             "([models] eop_beyond_table = 'quarantine')",

@@ -117,3 +117,10 @@ def test_check_prints_plan_with_defaults_and_fingerprints(write_config, raw_dir,
     out = capsys.readouterr().out
     assert "grid_step_s = 3600.0" in out and "tdb_site = 'auto'" in out
     assert "partition a:" in out and "configuration OK" in out
+
+
+def test_stages_command_lists_builtin_and_plugin_stages(plugin_on_path, capsys):
+    assert main(["stages"]) == 0
+    out = capsys.readouterr().out
+    assert "time_scales@1" in out and "Fairhead & Bretagnon 1990" in out and "grid_step_s = 3600.0" in out
+    assert "range_in_metres@1" in out and "17th CGPM (1983)" in out

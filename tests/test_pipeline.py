@@ -79,6 +79,9 @@ def test_demo_run_balances_and_rerun_reuses_everything(tmp_path, write_config, c
                 assert o["sha256"] == hashlib.sha256(Path(o["path"]).read_bytes()).hexdigest()
     assert m["config"]["sha256"] == hashlib.sha256(cfg.read_bytes()).hexdigest()
     assert m["config"]["resolved"]["stages"][0] == {"use": "time_scales", "grid_step_s": 3600.0, "tdb_site": "auto"}
+    ts = [a for a in m["partitions"][0]["steps"] if a["step"] == "time_scales"][0]
+    assert ts["flags"] == {"tdb_site": {"0": ts["rows_out"]}, "eop_status": {"0": ts["rows_out"]}}
+    assert ts["references"] and all("IAU" in r or "IERS" in r or "Fairhead" in r for r in ts["references"])
     roles = {a["role"] for a in m["auxiliary"]}
     assert "leap seconds" in roles
     assert all(m["software"][k] for k in ("relcorr", "numpy", "astropy", "pyerfa", "pyarrow", "luigi", "astropy-iers-data"))
