@@ -271,6 +271,13 @@ def load_config(path: str | Path, base_dir: str | Path | None = None, require_in
         stages=plans,
         demo=demo,
     )
+    if not problems:
+        from stages.base import StageContext
+
+        for sp in plans:
+            ctx = StageContext(record_kind=cfg.record_kind, models=dict(models), columns=sp.columns, base_dir=str(path.resolve().parent))
+            for param, msg in sp.cls().validate(sp.params, ctx).items():
+                problems.append((where, f"stages[{sp.index}].{param}", msg))
     if problems:
         raise ConfigError(problems)
     resolve_inputs(cfg, require=require_inputs or demo is None)

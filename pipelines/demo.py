@@ -93,6 +93,8 @@ def _tracking_day(rng, day, n, k) -> pa.Table:
     sigma[17] = -1e-9                      # uncertainty_invalid
     obs[19] = "range_sideways"             # observable_unknown
     unit[23] = "Hz"                        # unit_invalid
+    station[43] = "ZZZ"                    # station_unknown (stations stage)
+    station[47] = tx[47] = "PLN"           # station_without_coordinates (stations stage)
     if k == 0:
         tags = _iso(t)
         tags[-1] = "2016-12-31T23:59:60.250000000125Z"   # valid leap second, picosecond digits

@@ -284,8 +284,10 @@ def output_schema(raw_schema: pa.Schema) -> pa.Schema:
     return pa.schema(fields + [c.field() for c in schemas.INGEST_COLUMNS])
 
 
-def quarantine_schema(raw_schema: pa.Schema) -> pa.Schema:
-    return pa.schema(list(raw_schema) + list(QUARANTINE_COLUMNS) + [_field("source_row")])
+def quarantine_schema(schema: pa.Schema) -> pa.Schema:
+    """The schema of quarantined rows: the rows as they were, then step, reason and source row."""
+    extra = [] if "source_row" in schema.names else [_field("source_row")]
+    return pa.schema(list(schema) + list(QUARANTINE_COLUMNS) + extra)
 
 
 Progress = Callable[[int], None]

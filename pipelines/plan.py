@@ -70,7 +70,8 @@ def fingerprint(definition: dict[str, Any]) -> str:
 
 def stage_context(cfg: Config, partition: str = "", stage: StagePlan | None = None) -> StageContext:
     return StageContext(record_kind=cfg.record_kind, models=dict(cfg.models), partition=partition,
-                        columns=stage.columns if stage is not None else frozenset())
+                        columns=stage.columns if stage is not None else frozenset(),
+                        base_dir=str(Path(cfg.path).resolve().parent))
 
 
 def stage_definitions(cfg: Config) -> list[dict[str, Any]]:

@@ -12,6 +12,7 @@ See DEVELOPERS.md, "Writing a stage plugin", for a worked example.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from pathlib import Path
 from typing import Any, ClassVar, Mapping
 
 import numpy as np
@@ -118,6 +119,14 @@ class StageContext:
     partition: str = ""
     #: names of the columns the stage will receive (known before anything runs)
     columns: frozenset = frozenset()
+    #: folder that relative paths in stage parameters are taken from: the config file's
+    #: folder (``--base-dir`` moves the data folders only, not the model files)
+    base_dir: str = "."
+
+    def path(self, value: str) -> "Path":
+        """A path parameter resolved against ``base_dir``."""
+        p = Path(value)
+        return p if p.is_absolute() else Path(self.base_dir) / p
 
 
 @dataclass
@@ -163,6 +172,12 @@ class Stage:
     flag_columns: ClassVar[tuple[str, ...]] = ()
     #: reason codes the stage may quarantine with, and their meaning
     quarantine_reasons: ClassVar[Mapping[str, str]] = {}
+
+    def validate(self, params: Mapping[str, Any], context: StageContext) -> dict[str, str]:
+        """Problems with the resolved parameters that a type check cannot see
+        (a catalogue file that is missing or malformed...), as parameter name ->
+        message.  Called before anything runs; reported as config errors."""
+        return {}
 
     def model_identities(self, params: Mapping[str, Any], context: StageContext) -> dict[str, Any]:
         """Identities (versions, hashes) of the model data the stage reads.
