@@ -184,15 +184,15 @@ def _auxiliary(cfg) -> list[dict]:
 
 def _print_summary(manifest: dict) -> None:
     print()
-    print(f"{'partition':<26}{'step':<16}{'status':<9}{'rows in':>10}{'out':>10}{'quar.':>8}")
+    print(f"{'partition':<26}{'step':<18}{'status':<9}{'rows in':>10}{'out':>10}{'quar.':>8}")
     for p in manifest["partitions"]:
         for a in p["steps"]:
-            print(f"{p['partition']:<26}{a['step']:<16}{a['status']:<9}"
+            print(f"{p['partition']:<26}{a['step']:<18}{a['status']:<9}"
                   f"{_n(a.get('rows_in')):>10}{_n(a.get('rows_out')):>10}{_n(a.get('rows_quarantined')):>8}")
         if p["status"] != "ok":
             print(f"{'':<26}FAILED: {p.get('error')}")
     t = manifest["totals"]
-    print(f"{'total':<26}{'':<16}{'':<9}{t['rows_in']:>10}{t['rows_out']:>10}{t['rows_quarantined']:>8}")
+    print(f"{'total':<26}{'':<18}{'':<9}{t['rows_in']:>10}{t['rows_out']:>10}{t['rows_quarantined']:>8}")
     verdict = "balanced" if t["balanced"] else "NOT BALANCED"
     print(f"rows in = rows out + rows quarantined: {t['rows_in']} = {t['rows_out']} + {t['rows_quarantined']} ({verdict})")
     print(f"status: {manifest['run']['status']}")

@@ -55,6 +55,11 @@ def generate(cfg: Config) -> list[Path]:
     out = _out_dir(cfg)
     out.mkdir(parents=True, exist_ok=True)
     written = []
+    if demo.get("scenario") == "conjunction":
+        path = out / "conjunction-tracking.parquet"
+        pq.write_table(_conjunction_records(cfg, rng), path.with_name(f".{path.name}.tmp"))
+        path.with_name(f".{path.name}.tmp").replace(path)
+        return [path]
     for k in range(demo.get("partitions", 2)):
         day = FIRST_DAY + np.timedelta64(k, "D")
         if cfg.record_kind == "tracking":
@@ -148,4 +153,118 @@ def _clock_day(rng, day, n, k) -> pa.Table:
         "value": pa.array(value),
         "uncertainty": pa.array(sigma),
         "averaging_s": pa.array(tau),
+    })
+
+
+# ---------------------------------------------------------------------------- conjunction scenario
+# The invented probe TERN-4 on a circular heliocentric orbit of radius 1.52 au, placed so that it
+# passes behind the Sun as seen from the Earth on CONJUNCTION_MJD (TDB), its line of sight
+# missing the Sun's centre by about 3 solar radii; tracked from the invented stations.
+CONJUNCTION_MJD = 60481          # 2024-06-20 (TDB), an arbitrary date of our scenario
+PROBE = "TERN-4"
+PROBE_RADIUS_AU = 1.52
+PROBE_OFFSET_RAD = 0.0232        # angle out of the Earth's orbital plane at conjunction
+STATE_STEP_S = 3 * 3600.0
+STATE_SPAN_DAYS = 36
+
+
+def conjunction_states() -> pa.Table:
+    """The probe's heliocentric states every 3 h over +-36 days (deterministic, analytic two-body)."""
+    from stages.physics.ephemeris import GM_M3_PER_S2, load_planetary_ephemeris
+
+    eph = load_planetary_ephemeris()
+    zero = np.zeros(1)
+    pe, ve = eph.posvel_m("earth", np.array([CONJUNCTION_MJD]), zero)
+    ps, vs = eph.posvel_m("sun", np.array([CONJUNCTION_MJD]), zero)
+    r_e, v_e = (pe - ps)[0], (ve - vs)[0]
+    e_hat = r_e / np.linalg.norm(r_e)
+    pole = np.cross(r_e, v_e)
+    pole /= np.linalg.norm(pole)
+    u0 = np.cos(PROBE_OFFSET_RAD) * -e_hat + np.sin(PROBE_OFFSET_RAD) * pole
+    w = np.cross(pole, u0)
+    w /= np.linalg.norm(w)
+    r = PROBE_RADIUS_AU * AU_M
+    n = np.sqrt(GM_M3_PER_S2["sun"] / r**3)      # Kepler's third law, circular orbit
+    k = np.arange(-int(STATE_SPAN_DAYS * 86400 / STATE_STEP_S), int(STATE_SPAN_DAYS * 86400 / STATE_STEP_S) + 1)
+    dt = k * STATE_STEP_S
+    phase = n * dt
+    pos = r * (np.cos(phase)[:, None] * u0 + np.sin(phase)[:, None] * w)
+    vel = r * n * (-np.sin(phase)[:, None] * u0 + np.cos(phase)[:, None] * w)
+    day = np.floor(dt / 86400.0).astype(np.int64)
+    return pa.table({
+        "target": pa.array([PROBE] * len(k), pa.string()),
+        "tdb_mjd": pa.array(CONJUNCTION_MJD + day, pa.int32()),
+        "tdb_sod_s": pa.array(dt - day * 86400.0),
+        "x_m": pos[:, 0], "y_m": pos[:, 1], "z_m": pos[:, 2],
+        "vx_m_per_s": vel[:, 0], "vy_m_per_s": vel[:, 1], "vz_m_per_s": vel[:, 2],
+        "centre": pa.array(["sun"] * len(k), pa.string()),
+    })
+
+
+def write_conjunction_states(path: Path) -> None:
+    tmp = path.with_name(f".{path.name}.tmp")
+    pq.write_table(conjunction_states(), tmp, compression="zstd")
+    tmp.replace(path)
+
+
+def _conjunction_records(cfg: Config, rng) -> pa.Table:
+    """Two-way range records, daily passes over +-30 days of the conjunction, observed = model + noise."""
+    from stages.base import StageContext
+    from stages.light_time import LightTime
+    from stages.physics.ephemeris import load_planetary_ephemeris
+    from stages.physics.earth_rotation import itrs_to_gcrs
+    from stages.station_position import StationPosition
+    from stages.stations import Stations
+    from stages.time_scales import TimeScales
+
+    eph = load_planetary_ephemeris()
+    light = next(s for s in cfg.stages if s.name == "light_time")
+    catalogue = next(s for s in cfg.stages if s.name == "stations").params["catalogue"]
+    ctx = StageContext("tracking", dict(cfg.models), base_dir=str(Path(cfg.path).resolve().parent))
+    # candidate epochs every 20 minutes, for each station
+    mjd = np.repeat(np.arange(CONJUNCTION_MJD - 30, CONJUNCTION_MJD + 31), 72)
+    sod = np.tile(np.arange(72) * 1200.0, 61) + 600.0
+    cand = pa.table({"station": pa.array(np.repeat(np.array(STATIONS, dtype=object), mjd.size)),
+                     "observable": pa.array(np.full(mjd.size * len(STATIONS), "range_two_way", dtype=object)),
+                     "utc_mjd": pa.array(np.tile(mjd, len(STATIONS)), pa.int32())})
+    sites = Stations().apply(cand, {"catalogue": catalogue}, ctx).columns
+    x = np.column_stack([sites[f"site_itrs_{a}_m"] for a in "xyz"])
+    m, s = np.tile(mjd, len(STATIONS)), np.tile(sod, len(STATIONS))
+    up = itrs_to_gcrs(x, m, s, m, s + 69.184).pos_m          # TT ~ UTC + 69.184 s: enough for an elevation
+    from stages.physics.spacecraft_ephemeris import StateTable
+
+    states = StateTable.from_arrow(conjunction_states(), "conjunction")
+    p, _, _ = states.posvel_bcrs_m(PROBE, m, s + 69.184, eph, 86400.0)
+    e, _ = eph.posvel_m("earth", m, s + 69.184)
+    d = p - e
+    sin_el = np.einsum("ij,ij->i", d / np.linalg.norm(d, axis=1)[:, None], up / np.linalg.norm(up, axis=1)[:, None])
+    keep = sin_el > np.sin(np.radians(20.0))
+    m, s, station = m[keep], s[keep], np.repeat(np.array(STATIONS, dtype=object), mjd.size)[keep]
+    s = s + rng.uniform(-300.0, 300.0, s.size)
+    k = s.size
+    table = pa.table({
+        "station": pa.array(station, pa.string()), "target": pa.array(np.full(k, PROBE, dtype=object), pa.string()),
+        "observable": pa.array(np.full(k, "range_two_way", dtype=object), pa.string()),
+        "value": pa.array(np.zeros(k)), "unit": pa.array(np.full(k, "s", dtype=object), pa.string()),
+        "utc_mjd": pa.array(m, pa.int32()), "utc_sod_ps": pa.array(np.round(s * 1e6).astype(np.int64) * 10**6, pa.int64()),
+    })
+    for stage, params in ((Stations(), {"catalogue": catalogue}), (TimeScales(), TimeScales.defaults()),
+                          (StationPosition(), StationPosition.defaults())):
+        res = stage.apply(table, params, ctx)
+        for name, col in res.columns.items():
+            table = table.append_column(name, pa.array(np.asarray(col)))
+    computed = np.asarray(LightTime().apply(table, light.params, ctx).columns["computed_value"])
+    value = computed + rng.normal(0.0, 1e-9, k)            # 1 ns of white noise (about 15 cm of range)
+    iso = _iso(np.datetime64("1858-11-17", "ns") + (m.astype("timedelta64[D]").astype("timedelta64[ns]")
+                                                     + (table["utc_sod_ps"].to_numpy() // 1000).astype("timedelta64[ns]")))
+    ids = _ids("CNJ-", k)
+    target = np.full(k, PROBE, dtype=object)
+    target[5] = "TERN-9"                                    # target_unknown (light_time stage)
+    iso[7] = f"{np.datetime64('1858-11-17') + np.timedelta64(CONJUNCTION_MJD - 40, 'D')}T12:00:00Z"  # outside the states
+    return pa.table({
+        "record_id": pa.array(ids, pa.string()), "station": pa.array(station, pa.string()),
+        "transmit_station": pa.array(station, pa.string()), "target": pa.array(target, pa.string()),
+        "observable": pa.array(np.full(k, "range_two_way", dtype=object), pa.string()),
+        "time_tag": pa.array(iso, pa.string()), "value": pa.array(value),
+        "unit": pa.array(np.full(k, "s", dtype=object), pa.string()), "uncertainty": pa.array(np.full(k, 1e-9)),
     })

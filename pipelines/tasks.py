@@ -45,7 +45,7 @@ def failure_path(step: Step) -> Path:
 
 def progress(step: Step, partition: str, rows_in: int, rows_out: int, rows_q: int, seconds: float) -> None:
     extra = f" (+{rows_q} quarantined)" if rows_q else ""
-    print(f"  done  {step.name:<14} {partition:<24} rows {rows_in:>9} -> {rows_out:>9}{extra}  {seconds:7.2f} s", flush=True)
+    print(f"  done  {step.name:<16} {partition:<24} rows {rows_in:>9} -> {rows_out:>9}{extra}  {seconds:7.2f} s", flush=True)
 
 
 class _PartitionTask(luigi.Task):

@@ -34,7 +34,11 @@ def test_caution_for_operational_use():
 
 
 def test_every_reason_and_exit_code_is_documented():
-    for reason in list(schemas.INGEST_REASONS) + list(TimeScales.quarantine_reasons):
+    from pipelines.registry import discover
+
+    stage_reasons = [r for cls in discover().values() for r in cls.quarantine_reasons]
+    assert "eop_beyond_table" in TimeScales.quarantine_reasons
+    for reason in list(schemas.INGEST_REASONS) + stage_reasons:
         assert f"`{reason}`" in README, reason
     for code in EXIT_CODES:
         assert f"| {code} |" in README, code

@@ -1,0 +1,256 @@
+"""Stage ``light_time``: the light-time solution with the Shapiro delay for range records.
+
+For each one-, two- or three-way range record, from the reception time t3
+(topocentric TDB) at the receiving station: the downleg to the spacecraft
+(t2) and, for two- and three-way records, the upleg from the transmitting
+station (t1), each solved by iteration in TDB with the relativistic
+light-time term of the selected bodies (the Sun with its GM/c^2 bending
+terms) and PPN gamma as a parameter (``stages.physics.light_time``; Moyer
+2000, JPL DESCANSO Monograph 2, sec. 8; IERS TN36 eq. 11.17).
+
+Computed observable, in the time scale of the stations' clocks (TT, i.e.
+TAI + 32.184 s):
+
+* two-/three-way: tau = (t3 - t1)_TDB - [(TDB-TT)(t3) - (TDB-TT)(t1)], each
+  TDB - TT at its own station (topocentric);
+* one-way: tau = (t3 - t2)_TDB - (TDB-TT)(t3): the spacecraft's transmitter
+  is taken to time-tag in TDB (an on-board clock model belongs to the clock
+  stages).
+
+Unit ``m``: c*tau/2 for two-/three-way records (one-way equivalent distance),
+c*tau for one-way.  Columns per record: the epochs t2 and t1, the geometric
+light time and the relativistic term of each body on each leg, the computed
+observable, the observed value corrected for the relativistic terms, the
+residual (observed - computed), iteration counts and a status.  Doppler
+records pass untouched.
+"""
+from __future__ import annotations
+
+import functools
+import os
+from typing import Any, Mapping
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+
+from stages.base import Column, Param, Reference, Stage, StageContext, StageResult
+from stages.physics import light_time as lt
+from stages.physics.barycentric import station_state, times_from_tdb
+from stages.physics.constants import C_M_PER_S
+from stages.physics.earth_orientation import load_eop_table
+from stages.physics.ephemeris import GM_M3_PER_S2, load_planetary_ephemeris
+from stages.physics.leap_seconds import load_leap_table
+from stages.physics.spacecraft_ephemeris import (STATUS_IN_GAP, STATUS_OUTSIDE_COVERAGE, STATUS_UNKNOWN_TARGET,
+                                                 load_state_table, target_posvel_bcrs_m)
+
+LIGHT_TIME_BODIES = ("sun", "moon", "jupiter", "saturn", "earth")
+LEGS = ("down", "up")
+_XYZ = ("x", "y", "z")
+
+LT_OK, LT_NOT_CONVERGED, LT_INVALID = 0, 1, 2
+
+
+@functools.lru_cache(maxsize=4)
+def _states_cached(path: str, mtime_ns: int, size: int):
+    return load_state_table(path)
+
+
+def state_table(path):
+    st = os.stat(path)
+    return _states_cached(str(path), st.st_mtime_ns, st.st_size)
+
+
+def _f64(name, unit, text):
+    return Column(name, pa.float64(), unit, text)
+
+
+class LightTime(Stage):
+    name = "light_time"
+    version = 1
+    summary = "light-time solution (one-, two-, three-way range) with the Shapiro delay of the Sun and planets, PPN gamma"
+    record_kinds = ("tracking",)
+    requires = (
+        Column("target", pa.string(), "", "spacecraft or body"),
+        Column("observable", pa.string(), "", "observable type"),
+        Column("value", pa.float64(), "s|m", "observed value"),
+        Column("unit", pa.string(), "", "unit of value"),
+        Column("tdb_mjd", pa.int32(), "d", "reception time t3, TDB day"),
+        Column("tdb_sod_s", pa.float64(), "s", "reception time t3, TDB seconds of day"),
+        Column("tdb_minus_tt_s", pa.float64(), "s", "TDB - TT at t3 at the receiving station"),
+        *(Column(f"site_bcrs_{a}_m", pa.float64(), "m", "BCRS position of the receiving station at t3") for a in _XYZ),
+        *(Column(f"tx_site_itrs_{a}_m", pa.float64(), "m", "ITRF position of the transmitting station") for a in _XYZ),
+    )
+    provides = (
+        Column("lt_t2_tdb_mjd", pa.int32(), "d", "t2, reflection (transmission for one-way) at the spacecraft: TDB day"),
+        _f64("lt_t2_tdb_sod_s", "s", "t2: TDB seconds of day"),
+        Column("lt_t1_tdb_mjd", pa.int32(), "d", "t1, transmission at the transmitting station: TDB day (null for one-way)"),
+        _f64("lt_t1_tdb_sod_s", "s", "t1: TDB seconds of day"),
+        _f64("lt_down_geometric_s", "s", "downleg geometric light time |r3(t3) - r2(t2)|/c, TDB"),
+        _f64("lt_up_geometric_s", "s", "upleg geometric light time |r2(t2) - r1(t1)|/c, TDB"),
+        *(_f64(f"shapiro_{b}_{leg}_s", "s", f"relativistic light-time term of {b} on the {leg}leg (NaN: body not selected)")
+          for b in LIGHT_TIME_BODIES for leg in LEGS),
+        _f64("tdb_minus_tt_t1_s", "s", "TDB - TT at t1 at the transmitting station"),
+        _f64("computed_value", "s|m", "computed observable, in the record's unit"),
+        _f64("relativistic_value", "s|m", "sum of the relativistic light-time terms, in the record's unit"),
+        _f64("value_corrected", "s|m", "observed value minus the relativistic terms, in the record's unit"),
+        _f64("residual", "s|m", "observed minus computed, in the record's unit"),
+        Column("lt_iterations_down", pa.int8(), "", "iterations of the downleg solution"),
+        Column("lt_iterations_up", pa.int8(), "", "iterations of the upleg solution"),
+        Column("lt_status", pa.uint8(), "", "0 solved, 1 not converged, 2 invalid geometry (quarantined unless 0)"),
+    )
+    params = (
+        Param("spacecraft_states", "str", "", "spacecraft state table (Parquet, relative to the config file); "
+              "empty: targets must be bodies of the planetary ephemeris"),
+        Param("gamma", "float", 1.0, "PPN parameter gamma (1 in general relativity)", minimum=0.0, maximum=2.0),
+        Param("bodies", "str", "sun,jupiter,saturn,earth",
+              "comma-separated bodies whose relativistic light-time term is included: " + ", ".join(LIGHT_TIME_BODIES)),
+        Param("max_gap_s", "float", 43200.0, "widest gap between states the interpolation may bridge", unit="s",
+              minimum=60.0, maximum=864000.0),
+        Param("tolerance_s", "float", 1e-12, "convergence of each leg's iteration", unit="s", minimum=1e-13, maximum=1e-6),
+        Param("max_iterations", "int", 10, "iterations per leg before a record is declared not converged",
+              minimum=2, maximum=50),
+        Param("grid_step_s", "float", 3600.0, "grid of the precession-nutation matrix for stations at t1", unit="s",
+              minimum=60.0, maximum=3600.0),
+    )
+    references = (
+        Reference("Moyer 2000, Formulation for Observed and Computed Values of Deep Space Network Data Types for "
+                  "Navigation, JPL DESCANSO Monograph 2, sec. 8", "light-time solution and relativistic light-time term"),
+        Reference("IERS Conventions (2010), IERS TN 36, eq. 11.17", "Shapiro delay, geocentric form"),
+        Reference("Shapiro 1964, PRL 13, 789", "the gravitational time delay"),
+        Reference("Folkner, Williams & Boggs 2009, JPL IPN Progress Report 42-178 (DE421)", "body positions and GM"),
+    )
+    quarantine_reasons = {
+        "target_unknown": "the target is neither in the state table nor a body of the planetary ephemeris",
+        "target_outside_coverage": "the spacecraft epoch is outside its state table",
+        "target_in_gap": "the spacecraft epoch falls in a gap of the state table wider than max_gap_s",
+        "light_time_not_converged": "the light-time iteration did not converge within max_iterations",
+        "light_time_invalid": "geometrically impossible or non-finite light-time solution",
+    }
+
+    @staticmethod
+    def _bodies(params) -> tuple[str, ...]:
+        return tuple(b.strip() for b in params["bodies"].split(",") if b.strip())
+
+    def validate(self, params, context):
+        problems = {}
+        bad = [b for b in self._bodies(params) if b not in LIGHT_TIME_BODIES]
+        if bad:
+            problems["bodies"] = f"found {bad[0]!r}, expected a comma-separated list from: {', '.join(LIGHT_TIME_BODIES)}"
+        if params["spacecraft_states"]:
+            try:
+                state_table(context.path(params["spacecraft_states"]))
+            except (OSError, ValueError) as exc:
+                problems["spacecraft_states"] = str(exc)
+        return problems
+
+    def model_identities(self, params, context):
+        ids = {"planetary ephemeris": load_planetary_ephemeris().identity,
+               "earth orientation": load_eop_table().identity,
+               "leap seconds": load_leap_table().identity}
+        if params["spacecraft_states"]:
+            ids["spacecraft states"] = state_table(context.path(params["spacecraft_states"])).identity
+        return ids
+
+    def apply(self, table: pa.Table, params: Mapping[str, Any], context: StageContext) -> StageResult:
+        n = table.num_rows
+        eph = load_planetary_ephemeris()
+        leap = load_leap_table()
+        states = state_table(context.path(params["spacecraft_states"])) if params["spacecraft_states"] else None
+        bodies = self._bodies(params)
+        opts = dict(gamma=params["gamma"], bodies=bodies, bending_bodies=tuple(b for b in bodies if b == "sun"),
+                    tol_s=params["tolerance_s"], max_iter=params["max_iterations"])
+
+        def text(name):
+            return np.asarray(pc.fill_null(table[name], "").to_numpy(zero_copy_only=False), dtype=object)
+
+        obs, unit, target = text("observable"), text("unit"), text("target")
+        one = obs == "range_one_way"
+        two = (obs == "range_two_way") | (obs == "range_three_way")
+        t3_mjd, t3_sod = table["tdb_mjd"].to_numpy().astype(np.int64), table["tdb_sod_s"].to_numpy()
+        d3 = table["tdb_minus_tt_s"].to_numpy()
+        rx = np.column_stack([table[f"site_bcrs_{a}_m"].to_numpy() for a in _XYZ]) if n else np.zeros((0, 3))
+        tx_itrs = np.column_stack([table[f"tx_site_itrs_{a}_m"].to_numpy() for a in _XYZ]) if n else np.zeros((0, 3))
+
+        out = {c.name: np.full(n, np.nan) for c in self.provides}
+        for c in ("lt_t2_tdb_mjd", "lt_t1_tdb_mjd", "lt_iterations_down", "lt_iterations_up"):
+            out[c] = np.zeros(n, dtype=np.int64)
+        out["lt_status"] = np.zeros(n, dtype=np.uint8)
+        target_status = np.zeros(n, dtype=np.uint8)
+
+        def bodies_fn(name, mjd, sod):
+            return eph.posvel_m(name, mjd, sod)
+
+        for tgt in np.unique(target[one | two]):  # a loop over targets, not records
+            for kind, mask in (("one", one & (target == tgt)), ("two", two & (target == tgt))):
+                idx = np.flatnonzero(mask)
+                if idx.size == 0:
+                    continue
+
+                def sc_fn(mjd, sod, _t=tgt):
+                    p, v, _ = target_posvel_bcrs_m(_t, mjd, sod, eph, params["max_gap_s"], states)
+                    return p, v
+
+                if kind == "one":
+                    sol = lt.one_way_light_time(t3_mjd[idx], t3_sod[idx], rx[idx], sc_fn, bodies_fn, GM_M3_PER_S2, **opts)
+                    down, up = sol, None
+                    tau = sol.light_time_s - d3[idx]
+                    scale = np.where(unit[idx] == "m", C_M_PER_S, 1.0)
+                    status = sol.status
+                else:
+                    site = tx_itrs[idx]
+
+                    def tx_fn(mjd, sod, _site=site):
+                        utc_m, utc_s, tt_m, tt_s, _ = times_from_tdb(mjd, sod, _site, leap, params["grid_step_s"])
+                        st = station_state(_site, utc_m, utc_s, tt_m, tt_s, mjd, sod, eph, params["grid_step_s"])
+                        return st.bcrs.pos_m, st.bcrs.vel_m_per_s
+
+                    sol = lt.two_way_light_time(t3_mjd[idx], t3_sod[idx], rx[idx], sc_fn, tx_fn, bodies_fn,
+                                                GM_M3_PER_S2, **opts)
+                    down, up = sol.down, sol.up
+                    d1 = times_from_tdb(sol.t1_mjd, sol.t1_sod_s, site, leap, params["grid_step_s"])[4]
+                    out["tdb_minus_tt_t1_s"][idx] = d1
+                    out["lt_t1_tdb_mjd"][idx] = sol.t1_mjd
+                    out["lt_t1_tdb_sod_s"][idx] = sol.t1_sod_s
+                    out["lt_up_geometric_s"][idx] = up.geometric_s
+                    out["lt_iterations_up"][idx] = up.iterations
+                    tau = sol.round_trip_s - (d3[idx] - d1)
+                    scale = np.where(unit[idx] == "m", C_M_PER_S / 2.0, 1.0)
+                    status = sol.status
+                out["lt_t2_tdb_mjd"][idx] = down.t_tx_mjd
+                out["lt_t2_tdb_sod_s"][idx] = down.t_tx_sod_s
+                out["lt_down_geometric_s"][idx] = down.geometric_s
+                out["lt_iterations_down"][idx] = down.iterations
+                rel = np.zeros(idx.size)
+                for b in LIGHT_TIME_BODIES:
+                    if b not in bodies:
+                        continue
+                    out[f"shapiro_{b}_down_s"][idx] = down.shapiro_s[b]
+                    rel += down.shapiro_s[b]
+                    if up is not None:
+                        out[f"shapiro_{b}_up_s"][idx] = up.shapiro_s[b]
+                        rel += up.shapiro_s[b]
+                value = table["value"].to_numpy()[idx]
+                out["computed_value"][idx] = tau * scale
+                out["relativistic_value"][idx] = rel * scale
+                out["value_corrected"][idx] = value - rel * scale
+                out["residual"][idx] = value - tau * scale
+                out["lt_status"][idx] = status
+                # why a record has no solution: ask the spacecraft ephemeris at the solved (or received) epoch
+                t2m = np.where(np.isfinite(down.t_tx_sod_s), down.t_tx_mjd, t3_mjd[idx])
+                t2s = np.where(np.isfinite(down.t_tx_sod_s), down.t_tx_sod_s, t3_sod[idx])
+                target_status[idx] = target_posvel_bcrs_m(tgt, t2m, t2s, eph, params["max_gap_s"], states)[2]
+
+        solved = one | two
+        out["lt_t2_tdb_mjd"] = pa.array(out["lt_t2_tdb_mjd"], pa.int32(), mask=~solved)
+        out["lt_t1_tdb_mjd"] = pa.array(out["lt_t1_tdb_mjd"], pa.int32(), mask=~two)
+        out["lt_iterations_down"] = pa.array(out["lt_iterations_down"], pa.int8(), mask=~solved)
+        out["lt_iterations_up"] = pa.array(out["lt_iterations_up"], pa.int8(), mask=~two)
+        quarantine = {
+            "target_unknown": solved & (target_status == STATUS_UNKNOWN_TARGET),
+            "target_outside_coverage": solved & (target_status == STATUS_OUTSIDE_COVERAGE),
+            "target_in_gap": solved & (target_status == STATUS_IN_GAP),
+            "light_time_not_converged": solved & (out["lt_status"] == LT_NOT_CONVERGED),
+            "light_time_invalid": solved & (out["lt_status"] == LT_INVALID),
+        }
+        return StageResult(columns=out, touched=solved, quarantine=quarantine)
