@@ -250,7 +250,8 @@ class LightTime(Stage):
             "target_unknown": solved & (target_status == STATUS_UNKNOWN_TARGET),
             "target_outside_coverage": solved & (target_status == STATUS_OUTSIDE_COVERAGE),
             "target_in_gap": solved & (target_status == STATUS_IN_GAP),
-            "light_time_not_converged": solved & (out["lt_status"] == LT_NOT_CONVERGED),
-            "light_time_invalid": solved & (out["lt_status"] == LT_INVALID),
+            # the light-time reasons only where the spacecraft ephemeris is not the cause
+            "light_time_not_converged": solved & (target_status == 0) & (out["lt_status"] == LT_NOT_CONVERGED),
+            "light_time_invalid": solved & (target_status == 0) & (out["lt_status"] == LT_INVALID),
         }
         return StageResult(columns=out, touched=solved, quarantine=quarantine)

@@ -123,3 +123,52 @@ def test_gamma_scales_the_relativistic_terms(conjunction, tmp_path):
         ratio = np.asarray(zero[f"shapiro_{b}_down_s"]) / np.asarray(one[f"shapiro_{b}_down_s"])
         assert np.allclose(ratio, 0.5, rtol=1e-6), b
     assert np.isnan(np.asarray(one["shapiro_sun_down_s"])).all()   # not selected: NaN, never zero
+
+
+def test_bad_records_are_quarantined_with_their_reason(conjunction):
+    base, _ = conjunction
+    q = pq.read_table(base / "products" / "conjunction-tracking.quarantine.parquet")
+    reasons = dict(zip(q["target"].to_pylist(), q["quarantine_reason"].to_pylist()))
+    assert reasons["TERN-9"] == "target_unknown"
+    assert reasons["TERN-4"] == "target_outside_coverage"
+    assert set(q["quarantine_step"].to_pylist()) == {"light_time"}
+
+
+@pytest.mark.parametrize("change, reason", [
+    ({"max_iterations": 2}, "light_time_not_converged"),   # the downleg needs 3 Newton steps here
+    ({"max_gap_s": 3600.0}, "target_in_gap"),              # the bundled states are 3 h apart
+])
+def test_stage_level_faults(conjunction, change, reason):
+    from stages.base import StageContext
+    from stages.light_time import LightTime
+
+    _, t = conjunction
+    t = t.slice(0, 50)
+    keep = [c for c in t.column_names if c not in {f.name for f in LightTime.provides}]
+    ctx = StageContext("tracking", {}, base_dir=str(REPO / "sample_configs"))
+    params = {**LightTime.defaults(), "spacecraft_states": "conjunction-states.parquet", **change}
+    res = LightTime().apply(t.select(keep), params, ctx)
+    flagged = {r for r, m in res.quarantine.items() if np.asarray(m).any()}
+    assert flagged == {reason}
+    assert np.asarray(res.quarantine[reason]).sum() > 0
+
+
+def test_light_time_config_errors(tmp_path, capsys):
+    import shutil
+
+    (tmp_path / "raw").mkdir()
+    pq.write_table(pa.table({"x": [1]}), tmp_path / "raw" / "a.parquet")
+    shutil.copy(REPO / "sample_configs" / "stations.toml", tmp_path)
+    cfg = tmp_path / "run.toml"
+    cfg.write_text('[pipeline]\nname="t"\nrecord_kind="tracking"\ninputs=["raw/*.parquet"]\n'
+                   '[[stages]]\nuse="stations"\n[[stages]]\nuse="time_scales"\n[[stages]]\nuse="station_position"\n'
+                   '[[stages]]\nuse="light_time"\nbodies="sun,pluto"\nspacecraft_states="nowhere.parquet"\n')
+    assert main(["check", str(cfg)]) == 2
+    err = capsys.readouterr().err
+    assert "stages[4].bodies: found 'pluto', expected a comma-separated list from: sun, moon, jupiter, saturn, earth" in err
+    assert "stages[4].spacecraft_states:" in err and "nowhere.parquet" in err
+    # light_time before station_position: the BCRS station columns are missing
+    cfg.write_text('[pipeline]\nname="t"\nrecord_kind="tracking"\ninputs=["raw/*.parquet"]\n'
+                   '[[stages]]\nuse="stations"\n[[stages]]\nuse="time_scales"\n[[stages]]\nuse="light_time"\n')
+    assert main(["check", str(cfg)]) == 2
+    assert "requires column 'site_bcrs_x_m', which no earlier step provides" in capsys.readouterr().err
