@@ -39,6 +39,7 @@ from stages.physics import light_time as lt
 from stages.physics.barycentric import station_state, times_from_tdb
 from stages.physics.constants import C_M_PER_S
 from stages.physics.earth_orientation import load_eop_table
+from stages.physics.ephemeris_grid import load_gridded_ephemeris
 from stages.physics.ephemeris import GM_M3_PER_S2, load_planetary_ephemeris
 from stages.physics.leap_seconds import load_leap_table
 from stages.physics.spacecraft_ephemeris import (STATUS_IN_GAP, STATUS_OUTSIDE_COVERAGE, STATUS_UNKNOWN_TARGET,
@@ -59,6 +60,33 @@ def _states_cached(path: str, mtime_ns: int, size: int):
 def state_table(path):
     st = os.stat(path)
     return _states_cached(str(path), st.st_mtime_ns, st.st_size)
+
+
+class _BodyStates:
+    """Body states for the relativistic light-time terms: exact at the first epochs asked,
+    then carried along linearly, p(t) = p(t0) + v(t0) (t - t0), while |t - t0| <= max_dt_s.
+
+    The trial epochs of a leg's iteration differ by well under a second after the
+    first step.  Error: (1/2) a dt^2 <= 0.5 * 6e-3 m/s^2 * (10 s)^2 = 0.3 m (the Earth's
+    barycentric acceleration is the largest of the bodies used); the Sun's term moves by
+    2 (1+gamma) GM/(c^3 b) ~ 1e-14 s per metre of body position at b = 3 solar radii,
+    so the effect is < 1e-14 s.  Never used for the station or spacecraft positions.
+    """
+
+    def __init__(self, eph, max_dt_s: float = 10.0):
+        self.eph = eph
+        self.max_dt_s = max_dt_s
+        self.anchor: dict[str, tuple] = {}
+
+    def __call__(self, name, mjd, sod):
+        a = self.anchor.get(name)
+        if a is not None and a[0].shape == np.shape(mjd):
+            dt = (np.asarray(mjd) - a[0]) * 86400.0 + (np.asarray(sod) - a[1])
+            if np.all(np.abs(dt) <= self.max_dt_s):
+                return a[2] + a[3] * dt[:, None], a[3]
+        p, v = self.eph.posvel_m(name, mjd, sod)
+        self.anchor[name] = (np.array(mjd, copy=True), np.array(sod, copy=True), p, v)
+        return p, v
 
 
 def _f64(name, unit, text):
@@ -154,7 +182,7 @@ class LightTime(Stage):
 
     def apply(self, table: pa.Table, params: Mapping[str, Any], context: StageContext) -> StageResult:
         n = table.num_rows
-        eph = load_planetary_ephemeris()
+        eph = load_gridded_ephemeris()  # DE421 on a 15-minute grid: < 0.2 mm from the series itself
         leap = load_leap_table()
         states = state_table(context.path(params["spacecraft_states"])) if params["spacecraft_states"] else None
         bodies = self._bodies(params)
@@ -178,9 +206,6 @@ class LightTime(Stage):
         out["lt_status"] = np.zeros(n, dtype=np.uint8)
         target_status = np.zeros(n, dtype=np.uint8)
 
-        def bodies_fn(name, mjd, sod):
-            return eph.posvel_m(name, mjd, sod)
-
         for tgt in np.unique(target[one | two]):  # a loop over targets, not records
             for kind, mask in (("one", one & (target == tgt)), ("two", two & (target == tgt))):
                 idx = np.flatnonzero(mask)
@@ -191,6 +216,7 @@ class LightTime(Stage):
                     p, v, _ = target_posvel_bcrs_m(_t, mjd, sod, eph, params["max_gap_s"], states)
                     return p, v
 
+                bodies_fn = _BodyStates(eph)
                 if kind == "one":
                     sol = lt.one_way_light_time(t3_mjd[idx], t3_sod[idx], rx[idx], sc_fn, bodies_fn, GM_M3_PER_S2, **opts)
                     down, up = sol, None

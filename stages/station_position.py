@@ -17,6 +17,7 @@ import pyarrow as pa
 from stages.base import Column, Param, Reference, Stage, StageContext, StageResult
 from stages.physics.barycentric import station_state
 from stages.physics.earth_orientation import EOP_BEYOND_TABLE, load_eop_table
+from stages.physics.ephemeris_grid import load_gridded_ephemeris
 from stages.physics.ephemeris import load_planetary_ephemeris
 
 _XYZ = ("x", "y", "z")
@@ -74,7 +75,7 @@ class StationPosition(Stage):
                 "earth orientation": load_eop_table().identity}
 
     def apply(self, table: pa.Table, params: Mapping[str, Any], context: StageContext) -> StageResult:
-        eph = load_planetary_ephemeris()
+        eph = load_gridded_ephemeris()  # DE421 on a 15-minute grid: < 0.2 mm from the series itself
         n = table.num_rows
         col = lambda name: table[name].to_numpy()  # noqa: E731
         x = np.column_stack([col(f"site_itrs_{a}_m") for a in _XYZ]) if n else np.zeros((0, 3))

@@ -172,3 +172,23 @@ def test_light_time_config_errors(tmp_path, capsys):
                    '[[stages]]\nuse="stations"\n[[stages]]\nuse="time_scales"\n[[stages]]\nuse="light_time"\n')
     assert main(["check", str(cfg)]) == 2
     assert "requires column 'site_bcrs_x_m', which no earlier step provides" in capsys.readouterr().err
+
+
+def test_linearised_body_states_change_nothing_measurable(conjunction, monkeypatch):
+    """Bodies carried linearly between trial epochs (stages/light_time._BodyStates) against bodies
+    evaluated afresh at every trial epoch: the bound in its docstring is < 1e-14 s."""
+    import stages.light_time as mod
+    from stages.base import StageContext
+
+    _, t = conjunction
+    t = t.slice(0, 300)
+    keep = [c for c in t.column_names if c not in {f.name for f in mod.LightTime.provides}]
+    t = t.select(keep)
+    ctx = StageContext("tracking", {}, base_dir=str(REPO / "sample_configs"))
+    params = {**mod.LightTime.defaults(), "spacecraft_states": "conjunction-states.parquet"}
+    fast = mod.LightTime().apply(t, params, ctx).columns
+    original = mod._BodyStates.__init__
+    monkeypatch.setattr(mod._BodyStates, "__init__", lambda self, eph, max_dt_s=10.0: original(self, eph, -1.0))
+    exact = mod.LightTime().apply(t, params, ctx).columns
+    for name in ("computed_value", "shapiro_sun_down_s", "shapiro_sun_up_s", "shapiro_earth_up_s"):
+        assert np.abs(np.asarray(fast[name]) - np.asarray(exact[name])).max() < 1e-13, name

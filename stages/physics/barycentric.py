@@ -15,9 +15,10 @@ from stages.physics.earth_rotation import BcrsState, GcrsState, external_potenti
 from stages.physics.ephemeris import GM_M3_PER_S2, PlanetaryEphemeris
 from stages.physics.leap_seconds import LeapTable, tai_minus_utc_s
 
-#: bodies whose potential enters U_ext at the geocentre (IERS TN36 ch. 11: the Sun, the Moon
-#: and the planets; Mercury, Uranus and Neptune add < 1e-13 to U/c^2 and are left out)
-EXTERNAL_BODIES = ("sun", "moon", "venus", "mars", "jupiter", "saturn")
+#: bodies whose potential enters U_ext at the geocentre (IERS TN36 ch. 11).  U_ext X / c^2 at
+#: the Earth's surface: Sun 6.3 cm, Jupiter <= 0.02 mm, Saturn, Venus, Moon, Mars < 3 um each
+#: (GM/r at their closest; recomputed from DE421 GM values) -- only the Sun and Jupiter are kept.
+EXTERNAL_BODIES = ("sun", "jupiter")
 
 
 @dataclass(frozen=True)

@@ -263,6 +263,36 @@ def _dtdb_nodes(node_idx: np.ndarray, step_s: float, topocentric: bool) -> np.nd
     return np.stack([g, a, b, c], axis=1)
 
 
+_NODE_CACHE: dict[tuple[float, bool], tuple[int, np.ndarray]] = {}
+_NODE_CACHE_MAX = 100_000  # nodes kept per (step, kind): 11 years of hourly nodes, ~3 MB
+
+
+def _dtdb_nodes_cached(node_idx: np.ndarray, step_s: float, topocentric: bool) -> np.ndarray:
+    """:func:`_dtdb_nodes` for a contiguous block of node indices, remembered between calls.
+
+    A light-time solution asks for TDB - TT at several trial epochs of the same
+    days; node values depend only on the node index, so caching them changes
+    no result (bit for bit), only the cost.
+    """
+    node_idx = np.asarray(node_idx, dtype=np.int64)
+    if node_idx.size == 0:
+        return _dtdb_nodes(node_idx, step_s, topocentric)
+    lo, hi = int(node_idx.min()), int(node_idx.max())
+    key = (float(step_s), bool(topocentric))
+    cached = _NODE_CACHE.get(key)
+    if cached is not None and cached[0] <= lo and hi < cached[0] + len(cached[1]):
+        return cached[1][node_idx - cached[0]]
+    if cached is not None:
+        lo2, hi2 = min(lo, cached[0]), max(hi, cached[0] + len(cached[1]) - 1)
+        if hi2 - lo2 < _NODE_CACHE_MAX:
+            lo, hi = lo2, hi2
+    if hi - lo >= _NODE_CACHE_MAX:
+        return _dtdb_nodes(node_idx, step_s, topocentric)
+    values = _dtdb_nodes(np.arange(lo, hi + 1, dtype=np.int64), step_s, topocentric)
+    _NODE_CACHE[key] = (lo, values)
+    return values[node_idx - lo]
+
+
 def _cubic_coefficients(f: np.ndarray) -> np.ndarray:
     """Cubic Lagrange through 4 equispaced nodes f[-1], f[0], f[1], f[2] (rows
     j-1..j+2 for interval j), as power coefficients in x in [0, 1):
@@ -357,7 +387,7 @@ def tdb_minus_tt_s(
     else:  # sparse records over a long span: only the intervals in use
         intervals, row = np.unique(k, return_inverse=True)
         nodes = np.unique((intervals[:, None] + np.arange(-1, 3)).ravel())
-    f = _dtdb_nodes(nodes, step, topocentric=site is not None)
+    f = _dtdb_nodes_cached(nodes, step, topocentric=site is not None)
     coef = _cubic_coefficients(f)
     if intervals is not None:
         # interval j's first node (intervals[j]-1) sits at position p; rows
