@@ -56,8 +56,8 @@ MODELS_KEYS = {
 DEMO_KEYS = {
     p.name: p
     for p in (
-        Param("scenario", "str", "daily", "invented scenario: daily records, or a probe's solar conjunction",
-              choices=("daily", "conjunction")),
+        Param("scenario", "str", "daily", "invented scenario: daily records, a probe's solar conjunction, or links in a constellation",
+              choices=("daily", "conjunction", "constellation")),
         Param("seed", "int", 20261202, "random seed of the generated scenario", minimum=0),
         Param("records_per_partition", "int", 2000, "records in each generated raw file", minimum=10, maximum=10_000_000),
         Param("partitions", "int", 2, "number of generated raw files", minimum=1, maximum=366),

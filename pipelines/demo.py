@@ -55,9 +55,11 @@ def generate(cfg: Config) -> list[Path]:
     out = _out_dir(cfg)
     out.mkdir(parents=True, exist_ok=True)
     written = []
-    if demo.get("scenario") == "conjunction":
-        path = out / "conjunction-tracking.parquet"
-        pq.write_table(_conjunction_records(cfg, rng), path.with_name(f".{path.name}.tmp"))
+    scenario = demo.get("scenario")
+    if scenario in ("conjunction", "constellation"):
+        make = _conjunction_records if scenario == "conjunction" else _constellation_records
+        path = out / f"{scenario}-tracking.parquet"
+        pq.write_table(make(cfg, rng), path.with_name(f".{path.name}.tmp"))
         path.with_name(f".{path.name}.tmp").replace(path)
         return [path]
     for k in range(demo.get("partitions", 2)):
@@ -267,4 +269,80 @@ def _conjunction_records(cfg: Config, rng) -> pa.Table:
         "observable": pa.array(np.full(k, "range_two_way", dtype=object), pa.string()),
         "time_tag": pa.array(iso, pa.string()), "value": pa.array(value),
         "unit": pa.array(np.full(k, "s", dtype=object), pa.string()), "uncertainty": pa.array(np.full(k, 1e-9)),
+    })
+
+
+# ---------------------------------------------------------------------------- constellation scenario
+# Three invented spacecraft TRINE-A, -B, -C trailing each other on a circular heliocentric orbit of
+# 1 au, about 2.5 million km apart, exchanging one-way and transponded (two-way) ranging signals
+# with no ground station.  Their states are bundled in constellation-states.parquet.
+CONSTELLATION_MJD = 60310
+TRINE = ("TRINE-A", "TRINE-B", "TRINE-C")
+TRINE_PHASE_RAD = (0.0, 0.0167, 0.0334)
+TRINE_TILT_RAD = (0.0, 0.004, -0.004)
+
+
+def constellation_states() -> pa.Table:
+    """Heliocentric circular-orbit states of the three spacecraft, every 3 h over +-4 days."""
+    from stages.physics.ephemeris import GM_M3_PER_S2
+
+    r = AU_M
+    n = np.sqrt(GM_M3_PER_S2["sun"] / r**3)   # Kepler's third law, circular orbit
+    k = np.arange(-32, 33)
+    dt = k * 3 * 3600.0
+    day = np.floor(dt / 86400.0).astype(np.int64)
+    parts = []
+    for name, phase, tilt in zip(TRINE, TRINE_PHASE_RAD, TRINE_TILT_RAD):
+        ang = phase + n * dt
+        u = np.stack([np.cos(ang), np.sin(ang) * np.cos(tilt), np.sin(ang) * np.sin(tilt)], axis=1)
+        w = np.stack([-np.sin(ang), np.cos(ang) * np.cos(tilt), np.cos(ang) * np.sin(tilt)], axis=1)
+        pos, vel = r * u, r * n * w
+        parts.append(pa.table({
+            "target": pa.array([name] * k.size, pa.string()),
+            "tdb_mjd": pa.array(CONSTELLATION_MJD + day, pa.int32()),
+            "tdb_sod_s": pa.array(dt - day * 86400.0),
+            "x_m": pos[:, 0], "y_m": pos[:, 1], "z_m": pos[:, 2],
+            "vx_m_per_s": vel[:, 0], "vy_m_per_s": vel[:, 1], "vz_m_per_s": vel[:, 2],
+            "centre": pa.array(["sun"] * k.size, pa.string()),
+        }))
+    return pa.concat_tables(parts)
+
+
+def _constellation_records(cfg: Config, rng) -> pa.Table:
+    """Links every 10 minutes over two days: one-way for each ordered pair, two-way from A."""
+    from stages.base import StageContext
+    from stages.light_time import LightTime
+    from stages.time_scales import TimeScales
+
+    pairs = [(a, b, "link_range_one_way") for a in TRINE for b in TRINE if a != b]
+    pairs += [("TRINE-A", "TRINE-B", "link_range_two_way"), ("TRINE-A", "TRINE-C", "link_range_two_way")]
+    sod = np.arange(0, 2 * 86400, 600.0) + 300.0
+    m = CONSTELLATION_MJD + (sod // 86400).astype(np.int64)
+    s = sod % 86400
+    rcv = np.concatenate([np.full(sod.size, p[0], dtype=object) for p in pairs])
+    far = np.concatenate([np.full(sod.size, p[1], dtype=object) for p in pairs])
+    obs = np.concatenate([np.full(sod.size, p[2], dtype=object) for p in pairs])
+    mjd, sec = np.tile(m, len(pairs)), np.tile(s, len(pairs)) + rng.uniform(-1.0, 1.0, obs.size)
+    k = obs.size
+    nan = np.full(k, np.nan)
+    table = pa.table({"station": pa.array(rcv, pa.string()), "target": pa.array(far, pa.string()),
+                      "observable": pa.array(obs, pa.string()), "value": pa.array(np.zeros(k)),
+                      "unit": pa.array(np.full(k, "s", dtype=object), pa.string()),
+                      "utc_mjd": pa.array(mjd, pa.int32()),
+                      "utc_sod_ps": pa.array(np.round(sec * 1e6).astype(np.int64) * 10**6, pa.int64()),
+                      **{f"site_bcrs_{a}_m": nan for a in "xyz"}, **{f"tx_site_itrs_{a}_m": nan for a in "xyz"}})
+    ctx = StageContext("tracking", dict(cfg.models), base_dir=str(Path(cfg.path).resolve().parent))
+    for name, col in TimeScales().apply(table, TimeScales.defaults(), ctx).columns.items():
+        table = table.append_column(name, pa.array(np.asarray(col)))
+    light = next(sp for sp in cfg.stages if sp.name == "light_time")
+    computed = np.asarray(LightTime().apply(table, light.params, ctx).columns["computed_value"])
+    value = computed + rng.normal(0.0, 1e-11, k)            # 10 ps of white noise (3 mm of range)
+    iso = _iso(np.datetime64("1858-11-17", "ns") + (mjd.astype("timedelta64[D]").astype("timedelta64[ns]")
+                                                     + (table["utc_sod_ps"].to_numpy() // 1000).astype("timedelta64[ns]")))
+    far[3] = "TRINE-D"                                      # target_unknown (light_time stage)
+    return pa.table({
+        "record_id": pa.array(_ids("TRN-", k), pa.string()), "station": pa.array(rcv, pa.string()),
+        "target": pa.array(far, pa.string()), "observable": pa.array(obs, pa.string()),
+        "time_tag": pa.array(iso, pa.string()), "value": pa.array(value),
+        "unit": pa.array(np.full(k, "s", dtype=object), pa.string()), "uncertainty": pa.array(np.full(k, 1e-11)),
     })

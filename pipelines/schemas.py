@@ -23,7 +23,7 @@ class RawColumn:
 
 TRACKING = (
     RawColumn("record_id", "id", True, "", "unique identifier of the record (string or integer)"),
-    RawColumn("station", "text", True, "", "receiving station (the station whose clock tagged the record)"),
+    RawColumn("station", "text", True, "", "receiving station (the station whose clock tagged the record); for link_* observables the receiving spacecraft"),
     RawColumn("target", "text", True, "", "spacecraft or solar-system body tracked"),
     RawColumn("observable", "text", True, "", "observable type, see TRACKING_OBSERVABLES"),
     RawColumn("time_tag", "time", True, "UTC", "reception time, UTC (Arrow timestamp or ISO 8601 string)"),
@@ -54,7 +54,12 @@ TRACKING_OBSERVABLES = {
     "doppler_one_way": ("Hz",),
     "doppler_two_way": ("Hz",),
     "doppler_three_way": ("Hz",),
+    # links between two spacecraft: `station` names the receiving spacecraft, `target` the far one
+    "link_range_one_way": ("s", "m"),
+    "link_range_two_way": ("s", "m"),
 }
+#: observable types whose receiving end is a spacecraft, not a ground station
+LINK_OBSERVABLES = ("link_range_one_way", "link_range_two_way")
 CLOCK_OBSERVABLES = ("time_offset", "fractional_frequency")
 
 # the columns ingest adds to every record

@@ -23,6 +23,15 @@ light time and the relativistic term of each body on each leg, the computed
 observable, the observed value corrected for the relativistic terms, the
 residual (observed - computed), iteration counts and a status.  Doppler
 records pass untouched.
+
+Links between spacecraft (``link_range_one_way``, ``link_range_two_way``; a
+constellation with no ground station): ``station`` names the receiving
+spacecraft, ``target`` the far one, both in the state table; the same leg
+solution applies with the receiving spacecraft's state in place of the
+station's.  Both clocks are taken to keep TDB, so the computed observable is
+the TDB interval (t3 - t2, or t3 - t1 for the transponded round trip); the
+time tag, like every raw tag, is UTC and becomes TDB through the geocentric
+relation.
 """
 from __future__ import annotations
 
@@ -100,6 +109,7 @@ class LightTime(Stage):
     record_kinds = ("tracking",)
     requires = (
         Column("target", pa.string(), "", "spacecraft or body"),
+        Column("station", pa.string(), "", "receiving station, or receiving spacecraft of link_* records"),
         Column("observable", pa.string(), "", "observable type"),
         Column("value", pa.float64(), "s|m", "observed value"),
         Column("unit", pa.string(), "", "unit of value"),
@@ -149,9 +159,10 @@ class LightTime(Stage):
         Reference("Folkner, Williams & Boggs 2009, JPL IPN Progress Report 42-178 (DE421)", "body positions and GM"),
     )
     quarantine_reasons = {
-        "target_unknown": "the target is neither in the state table nor a body of the planetary ephemeris",
-        "target_outside_coverage": "the spacecraft epoch is outside its state table",
-        "target_in_gap": "the spacecraft epoch falls in a gap of the state table wider than max_gap_s",
+        "target_unknown": "the target (or, for a link, the receiving spacecraft) is neither in the state table "
+                          "nor a body of the planetary ephemeris",
+        "target_outside_coverage": "a spacecraft epoch is outside its state table",
+        "target_in_gap": "a spacecraft epoch falls in a gap of the state table wider than max_gap_s",
         "light_time_not_converged": "the light-time iteration did not converge within max_iterations",
         "light_time_invalid": "geometrically impossible or non-finite light-time solution",
     }
@@ -192,9 +203,15 @@ class LightTime(Stage):
         def text(name):
             return np.asarray(pc.fill_null(table[name], "").to_numpy(zero_copy_only=False), dtype=object)
 
-        obs, unit, target = text("observable"), text("unit"), text("target")
-        one = obs == "range_one_way"
-        two = (obs == "range_two_way") | (obs == "range_three_way")
+        obs, unit, target, receiver = text("observable"), text("unit"), text("target"), text("station")
+        kinds = {
+            "one": obs == "range_one_way",
+            "two": (obs == "range_two_way") | (obs == "range_three_way"),
+            "link_one": obs == "link_range_one_way",
+            "link_two": obs == "link_range_two_way",
+        }
+        one, two = kinds["one"] | kinds["link_one"], kinds["two"] | kinds["link_two"]
+        link = kinds["link_one"] | kinds["link_two"]
         t3_mjd, t3_sod = table["tdb_mjd"].to_numpy().astype(np.int64), table["tdb_sod_s"].to_numpy()
         d3 = table["tdb_minus_tt_s"].to_numpy()
         rx = np.column_stack([table[f"site_bcrs_{a}_m"].to_numpy() for a in _XYZ]) if n else np.zeros((0, 3))
@@ -206,66 +223,86 @@ class LightTime(Stage):
         out["lt_status"] = np.zeros(n, dtype=np.uint8)
         target_status = np.zeros(n, dtype=np.uint8)
 
-        for tgt in np.unique(target[one | two]):  # a loop over targets, not records
-            for kind, mask in (("one", one & (target == tgt)), ("two", two & (target == tgt))):
-                idx = np.flatnonzero(mask)
-                if idx.size == 0:
-                    continue
+        def spacecraft(name):
+            def state(mjd, sod):
+                p, v, _ = target_posvel_bcrs_m(name, mjd, sod, eph, params["max_gap_s"], states)
+                return p, v
+            return state
 
-                def sc_fn(mjd, sod, _t=tgt):
-                    p, v, _ = target_posvel_bcrs_m(_t, mjd, sod, eph, params["max_gap_s"], states)
-                    return p, v
+        # groups of records sharing their ends: a loop over (kind, target[, receiving spacecraft]), not records
+        groups = []
+        for kind, mask in kinds.items():
+            for tgt in np.unique(target[mask]):
+                sel = mask & (target == tgt)
+                rcvs = np.unique(receiver[sel]) if kind.startswith("link") else [None]
+                for rcv in rcvs:
+                    groups.append((kind, tgt, rcv, np.flatnonzero(sel if rcv is None else sel & (receiver == rcv))))
 
-                bodies_fn = _BodyStates(eph)
-                if kind == "one":
-                    sol = lt.one_way_light_time(t3_mjd[idx], t3_sod[idx], rx[idx], sc_fn, bodies_fn, GM_M3_PER_S2, **opts)
-                    down, up = sol, None
-                    tau = sol.light_time_s - d3[idx]
-                    scale = np.where(unit[idx] == "m", C_M_PER_S, 1.0)
-                    status = sol.status
-                else:
+        for kind, tgt, rcv, idx in groups:
+            sc_fn = spacecraft(tgt)
+            bodies_fn = _BodyStates(eph)
+            if rcv is not None:
+                # a link between spacecraft: the receiving spacecraft at t3 from the states; both clocks
+                # taken to keep TDB, so the computed observable is the TDB interval itself
+                rx_fn = spacecraft(rcv)
+                rx_pos, _, rx_status = target_posvel_bcrs_m(rcv, t3_mjd[idx], t3_sod[idx], eph,
+                                                            params["max_gap_s"], states)
+                clock_d3, clock_d1 = 0.0, 0.0
+            else:
+                rx_pos, rx_status, clock_d3 = rx[idx], np.zeros(idx.size, dtype=np.uint8), d3[idx]
+            if kind in ("one", "link_one"):
+                sol = lt.one_way_light_time(t3_mjd[idx], t3_sod[idx], rx_pos, sc_fn, bodies_fn, GM_M3_PER_S2, **opts)
+                down, up = sol, None
+                tau = sol.light_time_s - clock_d3
+                scale = np.where(unit[idx] == "m", C_M_PER_S, 1.0)
+                status = sol.status
+            else:
+                if rcv is None:
                     site = tx_itrs[idx]
 
                     def tx_fn(mjd, sod, _site=site):
                         utc_m, utc_s, tt_m, tt_s, _ = times_from_tdb(mjd, sod, _site, leap, params["grid_step_s"])
                         st = station_state(_site, utc_m, utc_s, tt_m, tt_s, mjd, sod, eph, params["grid_step_s"])
                         return st.bcrs.pos_m, st.bcrs.vel_m_per_s
-
-                    sol = lt.two_way_light_time(t3_mjd[idx], t3_sod[idx], rx[idx], sc_fn, tx_fn, bodies_fn,
-                                                GM_M3_PER_S2, **opts)
-                    down, up = sol.down, sol.up
-                    d1 = times_from_tdb(sol.t1_mjd, sol.t1_sod_s, site, leap, params["grid_step_s"])[4]
-                    out["tdb_minus_tt_t1_s"][idx] = d1
-                    out["lt_t1_tdb_mjd"][idx] = sol.t1_mjd
-                    out["lt_t1_tdb_sod_s"][idx] = sol.t1_sod_s
-                    out["lt_up_geometric_s"][idx] = up.geometric_s
-                    out["lt_iterations_up"][idx] = up.iterations
-                    tau = sol.round_trip_s - (d3[idx] - d1)
-                    scale = np.where(unit[idx] == "m", C_M_PER_S / 2.0, 1.0)
-                    status = sol.status
-                out["lt_t2_tdb_mjd"][idx] = down.t_tx_mjd
-                out["lt_t2_tdb_sod_s"][idx] = down.t_tx_sod_s
-                out["lt_down_geometric_s"][idx] = down.geometric_s
-                out["lt_iterations_down"][idx] = down.iterations
-                rel = np.zeros(idx.size)
-                for b in LIGHT_TIME_BODIES:
-                    if b not in bodies:
-                        continue
-                    out[f"shapiro_{b}_down_s"][idx] = down.shapiro_s[b]
-                    rel += down.shapiro_s[b]
-                    if up is not None:
-                        out[f"shapiro_{b}_up_s"][idx] = up.shapiro_s[b]
-                        rel += up.shapiro_s[b]
-                value = table["value"].to_numpy()[idx]
-                out["computed_value"][idx] = tau * scale
-                out["relativistic_value"][idx] = rel * scale
-                out["value_corrected"][idx] = value - rel * scale
-                out["residual"][idx] = value - tau * scale
-                out["lt_status"][idx] = status
-                # why a record has no solution: ask the spacecraft ephemeris at the solved (or received) epoch
-                t2m = np.where(np.isfinite(down.t_tx_sod_s), down.t_tx_mjd, t3_mjd[idx])
-                t2s = np.where(np.isfinite(down.t_tx_sod_s), down.t_tx_sod_s, t3_sod[idx])
-                target_status[idx] = target_posvel_bcrs_m(tgt, t2m, t2s, eph, params["max_gap_s"], states)[2]
+                else:
+                    tx_fn = rx_fn
+                sol = lt.two_way_light_time(t3_mjd[idx], t3_sod[idx], rx_pos, sc_fn, tx_fn, bodies_fn,
+                                            GM_M3_PER_S2, **opts)
+                down, up = sol.down, sol.up
+                if rcv is None:
+                    clock_d1 = times_from_tdb(sol.t1_mjd, sol.t1_sod_s, site, leap, params["grid_step_s"])[4]
+                    out["tdb_minus_tt_t1_s"][idx] = clock_d1
+                out["lt_t1_tdb_mjd"][idx] = sol.t1_mjd
+                out["lt_t1_tdb_sod_s"][idx] = sol.t1_sod_s
+                out["lt_up_geometric_s"][idx] = up.geometric_s
+                out["lt_iterations_up"][idx] = up.iterations
+                tau = sol.round_trip_s - (clock_d3 - clock_d1)
+                scale = np.where(unit[idx] == "m", C_M_PER_S / 2.0, 1.0)
+                status = sol.status
+            out["lt_t2_tdb_mjd"][idx] = down.t_tx_mjd
+            out["lt_t2_tdb_sod_s"][idx] = down.t_tx_sod_s
+            out["lt_down_geometric_s"][idx] = down.geometric_s
+            out["lt_iterations_down"][idx] = down.iterations
+            rel = np.zeros(idx.size)
+            for b in LIGHT_TIME_BODIES:
+                if b not in bodies:
+                    continue
+                out[f"shapiro_{b}_down_s"][idx] = down.shapiro_s[b]
+                rel += down.shapiro_s[b]
+                if up is not None:
+                    out[f"shapiro_{b}_up_s"][idx] = up.shapiro_s[b]
+                    rel += up.shapiro_s[b]
+            value = table["value"].to_numpy()[idx]
+            out["computed_value"][idx] = tau * scale
+            out["relativistic_value"][idx] = rel * scale
+            out["value_corrected"][idx] = value - rel * scale
+            out["residual"][idx] = value - tau * scale
+            out["lt_status"][idx] = status
+            # why a record has no solution: ask the spacecraft ephemeris at the solved (or received) epoch
+            t2m = np.where(np.isfinite(down.t_tx_sod_s), down.t_tx_mjd, t3_mjd[idx])
+            t2s = np.where(np.isfinite(down.t_tx_sod_s), down.t_tx_sod_s, t3_sod[idx])
+            far_status = target_posvel_bcrs_m(tgt, t2m, t2s, eph, params["max_gap_s"], states)[2]
+            target_status[idx] = np.where(rx_status != 0, rx_status, far_status)
 
         solved = one | two
         out["lt_t2_tdb_mjd"] = pa.array(out["lt_t2_tdb_mjd"], pa.int32(), mask=~solved)

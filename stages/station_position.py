@@ -49,7 +49,7 @@ class StationPosition(Stage):
         *_columns("gcrs", "GCRS (TT-compatible units)"),
         *_columns("bcrs", "BCRS (TDB-compatible units)"),
         Column("station_eop_status", pa.uint8(), "",
-               "Earth orientation used for the station: 1 measured, 2 predicted, 3 beyond the table"),
+               "Earth orientation used for the station: 0 no station (link), 1 measured, 2 predicted, 3 beyond the table"),
     )
     params = (
         Param("grid_step_s", "float", 3600.0, "grid of the precession-nutation matrix (error < 0.5 mm proven up to 3600 s)",
@@ -81,18 +81,25 @@ class StationPosition(Stage):
         x = np.column_stack([col(f"site_itrs_{a}_m") for a in _XYZ]) if n else np.zeros((0, 3))
         tdb_mjd, tdb_sod = col("tdb_mjd").astype(np.int64), col("tdb_sod_s")
         in_span = eph.in_span(tdb_mjd, tdb_sod)
-        # keep every record computable: out-of-span ones are evaluated at a safe epoch and quarantined
-        safe_mjd = np.where(in_span, tdb_mjd, 51544)
-        st = station_state(x, col("utc_mjd").astype(np.int64), col("utc_sod_ps") / 1e12,
-                           col("tt_mjd").astype(np.int64), col("tt_sod_s"), safe_mjd, tdb_sod, eph,
-                           grid_step_s=params["grid_step_s"], apply_cip_offsets=params["cip_offsets"])
-        cols: dict[str, np.ndarray] = {}
-        for frame, pos, vel in (("gcrs", st.gcrs.pos_m, st.gcrs.vel_m_per_s), ("bcrs", st.bcrs.pos_m, st.bcrs.vel_m_per_s)):
-            for k, a in enumerate(_XYZ):
-                cols[f"site_{frame}_{a}_m"] = pos[:, k]
-                cols[f"site_{frame}_v{a}_m_per_s"] = vel[:, k]
-        cols["station_eop_status"] = np.asarray(st.gcrs.eop_status, dtype=np.uint8)
-        quarantine = {"outside_ephemeris_span": ~in_span}
+        # records without a ground station (links between spacecraft) are left untouched
+        ground = np.isfinite(x).all(axis=1)
+        g = np.flatnonzero(ground)
+        cols: dict[str, np.ndarray] = {f"site_{f}_{q}": np.full(n, np.nan) for f in ("gcrs", "bcrs")
+                                       for q in [f"{a}_m" for a in _XYZ] + [f"v{a}_m_per_s" for a in _XYZ]}
+        cols["station_eop_status"] = np.zeros(n, dtype=np.uint8)
+        if g.size:
+            # keep every record computable: out-of-span ones are evaluated at a safe epoch and quarantined
+            safe_mjd = np.where(in_span, tdb_mjd, 51544)[g]
+            st = station_state(x[g], col("utc_mjd").astype(np.int64)[g], col("utc_sod_ps")[g] / 1e12,
+                               col("tt_mjd").astype(np.int64)[g], col("tt_sod_s")[g], safe_mjd, tdb_sod[g], eph,
+                               grid_step_s=params["grid_step_s"], apply_cip_offsets=params["cip_offsets"])
+            for frame, pos, vel in (("gcrs", st.gcrs.pos_m, st.gcrs.vel_m_per_s),
+                                    ("bcrs", st.bcrs.pos_m, st.bcrs.vel_m_per_s)):
+                for k, a in enumerate(_XYZ):
+                    cols[f"site_{frame}_{a}_m"][g] = pos[:, k]
+                    cols[f"site_{frame}_v{a}_m_per_s"][g] = vel[:, k]
+            cols["station_eop_status"][g] = np.asarray(st.gcrs.eop_status, dtype=np.uint8)
+        quarantine = {"outside_ephemeris_span": ground & ~in_span}
         if context.models.get("eop_beyond_table") == "quarantine":
             quarantine["eop_beyond_table"] = cols["station_eop_status"] == EOP_BEYOND_TABLE
-        return StageResult(columns=cols, quarantine=quarantine)
+        return StageResult(columns=cols, touched=ground, quarantine=quarantine)

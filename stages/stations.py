@@ -88,17 +88,21 @@ class Stations(Stage):
         one_way = np.asarray(pc.fill_null(pc.starts_with(obs, "range_one_way"), False).to_numpy(zero_copy_only=False)) | \
             np.asarray(pc.fill_null(pc.starts_with(obs, "doppler_one_way"), False).to_numpy(zero_copy_only=False))
         three_way = np.asarray(pc.fill_null(pc.ends_with(obs, "three_way"), False).to_numpy(zero_copy_only=False), dtype=bool)
+        # links between spacecraft have no ground station: left untouched, positions null
+        link = np.asarray(pc.fill_null(pc.starts_with(obs, "link_"), False).to_numpy(zero_copy_only=False), dtype=bool)
         if "transmit_station" in table.column_names:
             tx = np.where(three_way, _lookup(table["transmit_station"], cat.codes), rx)
         else:
             tx = rx.copy()
-        tx_used = ~one_way
-        unknown = (rx < 0) | (tx_used & (tx < 0))
+        tx_used = ~one_way & ~link
+        unknown = ~link & ((rx < 0) | (tx_used & (tx < 0)))
         rx_safe, tx_safe = np.where(rx < 0, 0, rx), np.where(tx < 0, 0, tx)
-        no_coords = ~unknown & (~cat.has_coordinates[rx_safe] | (tx_used & ~cat.has_coordinates[tx_safe]))
+        no_coords = ~link & ~unknown & (~cat.has_coordinates[rx_safe] | (tx_used & ~cat.has_coordinates[tx_safe]))
         rx_xyz = station_itrs_m(cat, rx_safe, mjd)
         tx_xyz = station_itrs_m(cat, tx_safe, mjd)
         tx_xyz[~tx_used] = np.nan
+        rx_xyz[link] = np.nan
         cols = {f"site_itrs_{a}_m": rx_xyz[:, k] for k, a in enumerate(_XYZ)}
         cols.update({f"tx_site_itrs_{a}_m": tx_xyz[:, k] for k, a in enumerate(_XYZ)})
-        return StageResult(columns=cols, quarantine={"station_unknown": unknown, "station_without_coordinates": no_coords})
+        return StageResult(columns=cols, touched=~link,
+                           quarantine={"station_unknown": unknown, "station_without_coordinates": no_coords})
