@@ -200,16 +200,16 @@ class LightTime(Stage):
         opts = dict(gamma=params["gamma"], bodies=bodies, bending_bodies=tuple(b for b in bodies if b == "sun"),
                     tol_s=params["tolerance_s"], max_iter=params["max_iterations"])
 
-        def text(name):
-            return np.asarray(pc.fill_null(table[name], "").to_numpy(zero_copy_only=False), dtype=object)
+        def equal(name, value):  # vectorised in Arrow: no Python string comparisons per record
+            return np.asarray(pc.fill_null(pc.equal(table[name], value), False).to_numpy(zero_copy_only=False), dtype=bool)
 
-        obs, unit, target, receiver = text("observable"), text("unit"), text("target"), text("station")
         kinds = {
-            "one": obs == "range_one_way",
-            "two": (obs == "range_two_way") | (obs == "range_three_way"),
-            "link_one": obs == "link_range_one_way",
-            "link_two": obs == "link_range_two_way",
+            "one": equal("observable", "range_one_way"),
+            "two": equal("observable", "range_two_way") | equal("observable", "range_three_way"),
+            "link_one": equal("observable", "link_range_one_way"),
+            "link_two": equal("observable", "link_range_two_way"),
         }
+        in_metres = equal("unit", "m")
         one, two = kinds["one"] | kinds["link_one"], kinds["two"] | kinds["link_two"]
         link = kinds["link_one"] | kinds["link_two"]
         t3_mjd, t3_sod = table["tdb_mjd"].to_numpy().astype(np.int64), table["tdb_sod_s"].to_numpy()
@@ -230,13 +230,20 @@ class LightTime(Stage):
             return state
 
         # groups of records sharing their ends: a loop over (kind, target[, receiving spacecraft]), not records
+        def codes(name):  # integer codes of a text column (sorting strings would cost more than the physics)
+            enc = pc.dictionary_encode(pc.fill_null(table[name], "")).combine_chunks()
+            return np.asarray(enc.indices.to_numpy(zero_copy_only=False)), enc.dictionary.to_pylist()
+
+        tcode, tnames = codes("target")
+        rcode, rnames = codes("station")
         groups = []
         for kind, mask in kinds.items():
-            for tgt in np.unique(target[mask]):
-                sel = mask & (target == tgt)
-                rcvs = np.unique(receiver[sel]) if kind.startswith("link") else [None]
-                for rcv in rcvs:
-                    groups.append((kind, tgt, rcv, np.flatnonzero(sel if rcv is None else sel & (receiver == rcv))))
+            for tc in np.unique(tcode[mask]):
+                sel = mask & (tcode == tc)
+                rcs = np.unique(rcode[sel]) if kind.startswith("link") else [None]
+                for rc in rcs:
+                    idx = np.flatnonzero(sel if rc is None else sel & (rcode == rc))
+                    groups.append((kind, tnames[tc], None if rc is None else rnames[rc], idx))
 
         for kind, tgt, rcv, idx in groups:
             sc_fn = spacecraft(tgt)
@@ -254,7 +261,7 @@ class LightTime(Stage):
                 sol = lt.one_way_light_time(t3_mjd[idx], t3_sod[idx], rx_pos, sc_fn, bodies_fn, GM_M3_PER_S2, **opts)
                 down, up = sol, None
                 tau = sol.light_time_s - clock_d3
-                scale = np.where(unit[idx] == "m", C_M_PER_S, 1.0)
+                scale = np.where(in_metres[idx], C_M_PER_S, 1.0)
                 status = sol.status
             else:
                 if rcv is None:
@@ -277,7 +284,7 @@ class LightTime(Stage):
                 out["lt_up_geometric_s"][idx] = up.geometric_s
                 out["lt_iterations_up"][idx] = up.iterations
                 tau = sol.round_trip_s - (clock_d3 - clock_d1)
-                scale = np.where(unit[idx] == "m", C_M_PER_S / 2.0, 1.0)
+                scale = np.where(in_metres[idx], C_M_PER_S / 2.0, 1.0)
                 status = sol.status
             out["lt_t2_tdb_mjd"][idx] = down.t_tx_mjd
             out["lt_t2_tdb_sod_s"][idx] = down.t_tx_sod_s

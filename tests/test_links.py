@@ -124,3 +124,16 @@ def test_constellation_sample_config_runs(tmp_path):
     assert np.allclose(sun, expected, rtol=0.02)
     q = pq.read_table(tmp_path / "products" / "constellation-tracking.quarantine.parquet")
     assert q["quarantine_reason"].to_pylist() == ["target_unknown"]
+
+
+def test_metres_are_c_tau_over_two_for_round_trips_and_c_tau_one_way(tmp_path):
+    """README, light_time: unit m means c*tau/2 for two-way and c*tau for one-way (common practice)."""
+    path = _states(tmp_path)
+    ctx = StageContext("tracking", {}, base_dir=str(tmp_path))
+    params = {**LightTime.defaults(), "spacecraft_states": path.name, "bodies": ""}
+    table = _records(["link_range_one_way", "link_range_two_way"], [1000.0, 1000.0])
+    seconds = np.asarray(LightTime().apply(table, params, ctx).columns["computed_value"])
+    table = table.set_column(table.schema.get_field_index("unit"), "unit", pa.array(["m", "m"]))
+    metres = np.asarray(LightTime().apply(table, params, ctx).columns["computed_value"])
+    assert metres[0] == pytest.approx(C_M_PER_S * seconds[0], rel=1e-15)
+    assert metres[1] == pytest.approx(C_M_PER_S * seconds[1] / 2, rel=1e-15)

@@ -60,6 +60,7 @@ from .earth_orientation import (
     ut1_minus_utc_with_rate,
 )
 from .leap_seconds import load_leap_table
+from .node_cache import NodeCache
 
 __all__ = [
     "GcrsState",
@@ -143,6 +144,15 @@ def _node_values(node_idx: np.ndarray, step_s: float, cip_offsets: bool, eop: Eo
         x = x + dx
         y = y + dy
     return np.stack([x, y, s, erfa.sp00(jd1, jd2)], axis=1)
+
+
+_NODES = NodeCache()
+
+
+def _node_values_cached(node_idx: np.ndarray, step_s: float, cip_offsets: bool, eop: EopTable) -> np.ndarray:
+    """:func:`_node_values`, remembered between calls for the same table (``node_cache``: no result changes)."""
+    key = (float(step_s), bool(cip_offsets), eop.identity.get("sha256"))
+    return _NODES.values(key, node_idx, lambda nodes: _node_values(nodes, step_s, cip_offsets, eop))
 
 
 def _cubic_power_coefficients(f: np.ndarray) -> np.ndarray:
@@ -378,12 +388,12 @@ def itrs_to_gcrs(
     kmin, kmax = int(k.min()), int(k.max())
     if kmax - kmin + 1 <= max(4096, n):  # dense: every interval kmin..kmax
         nodes = np.arange(kmin - 1, kmax + 3, dtype=np.int64)
-        coef = _cubic_power_coefficients(_node_values(nodes, step, apply_cip_offsets, eop))
+        coef = _cubic_power_coefficients(_node_values_cached(nodes, step, apply_cip_offsets, eop))
         row = (k - kmin).astype(np.intp)
     else:  # sparse records over a long span: only the intervals in use
         intervals, row = np.unique(k, return_inverse=True)
         nodes = np.unique((intervals[:, None] + np.arange(-1, 3)).ravel())
-        coef = _cubic_power_coefficients(_node_values(nodes, step, apply_cip_offsets, eop))
+        coef = _cubic_power_coefficients(_node_values_cached(nodes, step, apply_cip_offsets, eop))
         # interval j's first node (intervals[j] - 1) sits at position p of
         # ``nodes``; p..p+3 are its 4 consecutive nodes, so coefficient column p
         coef = np.ascontiguousarray(coef[:, np.searchsorted(nodes, intervals - 1)])

@@ -28,6 +28,7 @@ import erfa
 import numpy as np
 
 from . import constants as K
+from .node_cache import NodeCache
 from .leap_seconds import LeapTable, seconds_in_day, tai_minus_utc_s
 
 __all__ = [
@@ -263,34 +264,13 @@ def _dtdb_nodes(node_idx: np.ndarray, step_s: float, topocentric: bool) -> np.nd
     return np.stack([g, a, b, c], axis=1)
 
 
-_NODE_CACHE: dict[tuple[float, bool], tuple[int, np.ndarray]] = {}
-_NODE_CACHE_MAX = 100_000  # nodes kept per (step, kind): 11 years of hourly nodes, ~3 MB
+_NODES = NodeCache()
 
 
 def _dtdb_nodes_cached(node_idx: np.ndarray, step_s: float, topocentric: bool) -> np.ndarray:
-    """:func:`_dtdb_nodes` for a contiguous block of node indices, remembered between calls.
-
-    A light-time solution asks for TDB - TT at several trial epochs of the same
-    days; node values depend only on the node index, so caching them changes
-    no result (bit for bit), only the cost.
-    """
-    node_idx = np.asarray(node_idx, dtype=np.int64)
-    if node_idx.size == 0:
-        return _dtdb_nodes(node_idx, step_s, topocentric)
-    lo, hi = int(node_idx.min()), int(node_idx.max())
-    key = (float(step_s), bool(topocentric))
-    cached = _NODE_CACHE.get(key)
-    if cached is not None and cached[0] <= lo and hi < cached[0] + len(cached[1]):
-        return cached[1][node_idx - cached[0]]
-    if cached is not None:
-        lo2, hi2 = min(lo, cached[0]), max(hi, cached[0] + len(cached[1]) - 1)
-        if hi2 - lo2 < _NODE_CACHE_MAX:
-            lo, hi = lo2, hi2
-    if hi - lo >= _NODE_CACHE_MAX:
-        return _dtdb_nodes(node_idx, step_s, topocentric)
-    values = _dtdb_nodes(np.arange(lo, hi + 1, dtype=np.int64), step_s, topocentric)
-    _NODE_CACHE[key] = (lo, values)
-    return values[node_idx - lo]
+    """:func:`_dtdb_nodes`, remembered between calls (``node_cache``: no result changes)."""
+    return _NODES.values((float(step_s), bool(topocentric)), node_idx,
+                         lambda nodes: _dtdb_nodes(nodes, step_s, topocentric))
 
 
 def _cubic_coefficients(f: np.ndarray) -> np.ndarray:
