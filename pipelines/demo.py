@@ -67,7 +67,7 @@ def generate(cfg: Config) -> list[Path]:
         if cfg.record_kind == "tracking":
             table = _tracking_day(rng, day, n, k)
         else:
-            table = _clock_day(rng, day, n, k)
+            table = _clock_day(rng, day, n, k, cfg)
         path = out / f"{cfg.record_kind}-{day}.parquet"
         tmp = path.with_name(f".{path.name}.tmp")
         pq.write_table(table, tmp, row_group_size=max(1000, n // 4))
@@ -125,15 +125,17 @@ def _tracking_day(rng, day, n, k) -> pa.Table:
     })
 
 
-def _clock_day(rng, day, n, k) -> pa.Table:
+def _clock_day(rng, day, n, k, cfg: Config | None = None) -> pa.Table:
     t = _times(rng, day, n)
     ref = rng.choice(REFERENCE_CLOCKS, n).astype(object)
     freq = rng.random(n) < 0.3
     obs = np.where(freq, "fractional_frequency", "time_offset").astype(object)
-    days = (t - np.datetime64("2016-12-31", "ns")).astype(float) / 8.64e13
-    # an invented clock: offset 3 us, rate +4.4e-10 (as a clock raised to orbit would show), white noise
-    offset_s = 3e-6 + 4.4e-10 * days * 86400.0 + rng.normal(0, 2e-10, n)
-    rate = 4.4e-10 + rng.normal(0, 1e-13, n)
+    seconds = (t - np.datetime64("2016-12-31", "ns")).astype(float) / 1e9
+    # the invented clock's own behaviour: offset 3 us, rate +2e-12, white noise
+    offset_s = 3e-6 + 2e-12 * seconds + rng.normal(0, 2e-10, n)
+    rate = 2e-12 + rng.normal(0, 1e-13, n)
+    relativistic = _clock_relativity(cfg, t, ref, obs) if cfg is not None else np.zeros(n)
+    offset_s, rate = offset_s + relativistic, rate + relativistic
     value = np.where(freq, rate, offset_s)
     sigma = np.where(freq, 1e-13, 2e-10)
     tau = np.where(freq, 300.0, np.nan)
@@ -156,6 +158,29 @@ def _clock_day(rng, day, n, k) -> pa.Table:
         "uncertainty": pa.array(sigma),
         "averaging_s": pa.array(tau),
     })
+
+
+def _clock_relativity(cfg: Config, t: np.ndarray, ref: np.ndarray, obs: np.ndarray) -> np.ndarray:
+    """What the clock_rate stage predicts for these comparisons (0 when the config has no such stage)."""
+    spec = next((sp for sp in cfg.stages if sp.name == "clock_rate"), None)
+    if spec is None:
+        return np.zeros(t.size)
+    from stages.base import StageContext
+    from stages.clock_rate import ClockRate
+    from stages.time_scales import TimeScales
+
+    n = t.size
+    ns = t.astype("datetime64[ns]").astype(np.int64)
+    mjd = ns // 86_400_000_000_000 + 40587
+    sod_ps = (ns % 86_400_000_000_000) * 1000
+    table = pa.table({"utc_mjd": pa.array(mjd, pa.int32()), "utc_sod_ps": pa.array(sod_ps, pa.int64())})
+    ctx = StageContext("clock", dict(cfg.models), base_dir=str(Path(cfg.path).resolve().parent))
+    ts = TimeScales().apply(table, TimeScales.defaults(), ctx).columns
+    table = pa.table({"remote_clock": pa.array(np.full(n, REMOTE_CLOCK, dtype=object), pa.string()),
+                      "reference_clock": pa.array(ref, pa.string()), "observable": pa.array(obs, pa.string()),
+                      "value": np.zeros(n), "tt_mjd": pa.array(np.asarray(ts["tt_mjd"]), pa.int32()),
+                      "tt_sod_s": np.asarray(ts["tt_sod_s"]), "averaging_s": np.full(n, 300.0)})
+    return np.asarray(ClockRate().apply(table, spec.params, ctx).columns["relativistic_prediction"])
 
 
 # ---------------------------------------------------------------------------- conjunction scenario

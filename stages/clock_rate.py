@@ -1,0 +1,260 @@
+"""Stage ``clock_rate``: proper time of the compared clocks against coordinate time, term by term.
+
+For each clock-comparison record (remote − reference), both clocks are
+looked up in a clock catalogue (``stages.physics.clock_catalogue``):
+
+* an orbiting clock follows its two-body orbit (osculating elements in the
+  GCRS); its rate against TT is d tau/dTT − 1 = L_G − [v²/2 + U_E]/c² with
+  U_E the monopole + J2 potential (IERS Conventions 2010, sec. 10.2; Ashby
+  2003, Living Rev. Relativity 6, 1), and the time it accumulates since the
+  reference epoch splits into a constant-rate part [L_G − 3GM/(2ac²) +
+  <J2 rate>]·Δt and the periodic eccentricity term −2√(GMa)·e·(sin E −
+  sin E_ref)/c² = −2 (r·v − r_ref·v_ref)/c² (Ashby 2003 sec. 5; IS-GPS-200
+  sec. 20.3.3.3.3.1);
+* a ground clock at rest on the Earth runs at C/c² against TT, C = g·H its
+  geopotential number (H: height above the geoid from the catalogue, g: GRS80
+  normal gravity at the station's latitude), since a clock on the geoid keeps
+  TT (IAU 2000 Resolution B1.9).
+
+Predicted relativistic part of the observable: for ``time_offset`` records
+the difference of the accumulated times, for ``fractional_frequency`` records
+the difference of the mean rates over the averaging interval
+[t − τ/2, t + τ/2] (from the accumulated times at its ends).  The corrected
+value is the observation minus that prediction: what is left is the clocks'
+own behaviour (offset, rate, drift, noise).  With ``coordinate_time =
+"TCG"`` every rate is referred to TCG instead (dTT/dTCG = 1 − L_G).
+
+Neglected (bounds): the periodic J2 part of the accumulated time (tens of
+ps for an orbit at 26 000 km; the J2 rate itself is kept per record), the
+tidal terms of the Sun and Moon (< 1e-15 in rate near the Earth), geoid
+undulations beyond the catalogue height.
+"""
+from __future__ import annotations
+
+import datetime
+import functools
+import os
+from typing import Any, Mapping
+
+import erfa
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+
+from stages.base import Column, Param, Reference, Stage, StageContext, StageResult
+from stages.physics import clock_rates as cr
+from stages.physics import constants as K
+from stages.physics.clock_catalogue import ClockCatalogueError, load_clock_catalogue
+from stages.physics.station_catalogue import CatalogueError, load_catalogue
+
+C2 = K.C_M_PER_S ** 2
+
+
+@functools.lru_cache(maxsize=4)
+def _clocks(path: str, mtime_ns: int, size: int):
+    return load_clock_catalogue(path)
+
+
+@functools.lru_cache(maxsize=4)
+def _stations(path: str, mtime_ns: int, size: int):
+    return load_catalogue(path)
+
+
+def _cached(loader, path):
+    st = os.stat(path)
+    return loader(str(path), st.st_mtime_ns, st.st_size)
+
+
+def normal_gravity_m_per_s2(geodetic_lat_rad) -> np.ndarray:
+    """GRS80 normal gravity on the ellipsoid, Somigliana's formula (Moritz 2000, J. Geodesy 74, 128;
+    from memory): gamma = 9.7803267715 (1 + 0.001931851353 sin^2 phi) / sqrt(1 - 0.00669438002290 sin^2 phi)."""
+    s2 = np.sin(geodetic_lat_rad) ** 2
+    return 9.7803267715 * (1.0 + 0.001931851353 * s2) / np.sqrt(1.0 - 0.00669438002290 * s2)
+
+
+def _mean_j2_rate(a_m, e, i_rad, raan_rad, argp_rad, samples: int = 720) -> float:
+    """Orbit average of the J2 rate term, by sampling one period uniformly in mean anomaly."""
+    m = np.linspace(0.0, 2 * np.pi, samples, endpoint=False)
+    n = np.sqrt(K.GM_EARTH_TT_M3_PER_S2 / a_m**3)
+    pos, vel, _ = cr.kepler_state(a_m, e, i_rad, raan_rad, argp_rad, 0.0, 0.0, m / n)
+    return float(np.mean(cr.clock_rate_terms(pos, vel)["j2"]))
+
+
+def _parse_epoch(text: str):
+    ep = datetime.datetime.fromisoformat(text)
+    mjd = ep.date().toordinal() - 678576
+    return mjd, ep.hour * 3600.0 + ep.minute * 60.0 + ep.second + ep.microsecond * 1e-6
+
+
+def _f64(name, unit, text):
+    return Column(name, pa.float64(), unit, text)
+
+
+class ClockRate(Stage):
+    name = "clock_rate"
+    version = 1
+    summary = "proper time of orbiting and ground clocks against TT (or TCG): redshift, velocity, J2, eccentricity term"
+    record_kinds = ("clock",)
+    requires = (
+        Column("remote_clock", pa.string(), "", "remote clock"),
+        Column("reference_clock", pa.string(), "", "reference clock"),
+        Column("observable", pa.string(), "", "time_offset or fractional_frequency"),
+        Column("value", pa.float64(), "s|1", "observed value"),
+        Column("tt_mjd", pa.int32(), "d", "epoch, TT day"),
+        Column("tt_sod_s", pa.float64(), "s", "epoch, TT seconds of day"),
+    )
+    optional = (Column("averaging_s", pa.float64(), "s", "averaging interval of fractional_frequency records"),)
+    provides = (
+        _f64("remote_rate_gravitational", "1", "remote clock: L_G - GM/(r c^2), monopole (0 for a ground clock: see total)"),
+        _f64("remote_rate_j2", "1", "remote clock: J2 part of the potential term"),
+        _f64("remote_rate_velocity", "1", "remote clock: -v^2/(2 c^2), GCRS velocity"),
+        _f64("remote_rate_total", "1", "remote clock: d tau/dt - 1 against the coordinate time (TT or TCG)"),
+        _f64("reference_rate_total", "1", "reference clock: d tau/dt - 1 against the coordinate time"),
+        _f64("remote_offset_secular_s", "s", "remote clock: constant-rate part of tau - t accumulated since the reference epoch"),
+        _f64("remote_offset_periodic_s", "s", "remote clock: eccentricity term -2(r.v - r0.v0)/c^2 since the reference epoch"),
+        _f64("eccentricity_term_s", "s", "remote clock: -2 r.v/c^2 at the epoch (IS-GPS-200 F e sqrt(A) sin E)"),
+        _f64("reference_offset_s", "s", "reference clock: tau - t accumulated since the reference epoch"),
+        _f64("relativistic_prediction", "s|1", "predicted relativistic part of the observable (remote - reference)"),
+        _f64("value_corrected", "s|1", "observed value minus the relativistic prediction: the clocks' own behaviour"),
+    )
+    params = (
+        Param("clocks", "str", "clocks.toml", "clock catalogue (relative to the config file)"),
+        Param("stations", "str", "stations.toml", "station catalogue, for the latitude of ground clocks"),
+        Param("reference_epoch_tt", "str", "2000-01-01T12:00:00",
+              "epoch from which accumulated times are counted (ISO date-time, TT)"),
+        Param("coordinate_time", "str", "TT", "coordinate time the clocks are referred to", choices=("TT", "TCG")),
+    )
+    references = (
+        Reference("IERS Conventions (2010), IERS TN 36, sec. 10.2 and Table 1.1", "proper time of a clock near the Earth; L_G, GM, J2"),
+        Reference("Ashby 2003, Living Rev. Relativity 6, 1 (eq. 18, sec. 5)", "gravitational and velocity terms, eccentricity term"),
+        Reference("IS-GPS-200, sec. 3.3.1.1 and 20.3.3.3.3.1", "factory frequency offset, F e sqrt(A) sin E"),
+        Reference("IAU 2000 Resolution B1.9", "a clock on the geoid keeps TT; dTT/dTCG = 1 - L_G"),
+        Reference("Moritz 2000, J. Geodesy 74, 128 (GRS80)", "normal gravity for ground clocks"),
+    )
+    quarantine_reasons = {
+        "clock_unknown": "the remote or reference clock is not in the clock catalogue",
+        "clock_station_unknown": "a ground clock's station is not in the station catalogue (or has no position)",
+    }
+
+    def validate(self, params, context):
+        problems = {}
+        try:
+            clocks = load_clock_catalogue(context.path(params["clocks"]))
+        except ClockCatalogueError as exc:
+            problems["clocks"] = str(exc)
+            clocks = None
+        try:
+            stations = load_catalogue(context.path(params["stations"]))
+        except CatalogueError as exc:
+            if clocks is not None and (~clocks.orbiting).any():
+                problems["stations"] = str(exc)
+            stations = None
+        try:
+            _parse_epoch(params["reference_epoch_tt"])
+        except ValueError:
+            problems["reference_epoch_tt"] = f"found {params['reference_epoch_tt']!r}, expected an ISO date-time such as 2000-01-01T12:00:00"
+        if clocks is not None and stations is not None:
+            missing = sorted(set(clocks.station[~clocks.orbiting]) - set(stations.codes))
+            if missing:
+                problems["clocks"] = f"ground clock station {missing[0]!r} is not in {params['stations']}"
+        return problems
+
+    def model_identities(self, params, context):
+        ids = {"clock catalogue": load_clock_catalogue(context.path(params["clocks"])).identity}
+        try:
+            ids["station catalogue"] = load_catalogue(context.path(params["stations"])).identity
+        except CatalogueError:
+            pass
+        return ids
+
+    def apply(self, table: pa.Table, params: Mapping[str, Any], context: StageContext) -> StageResult:
+        n = table.num_rows
+        clocks = _cached(_clocks, context.path(params["clocks"]))
+        k = len(clocks.codes)
+        # per-clock constants (a loop over catalogue clocks, not records)
+        ground_rate = np.full(k, np.nan)
+        mean_j2 = np.zeros(k)
+        station_ok = np.ones(k, dtype=bool)
+        if (~clocks.orbiting).any():
+            stations = _cached(_stations, context.path(params["stations"]))
+            lookup = {c: i for i, c in enumerate(stations.codes)}
+            for j in np.flatnonzero(~clocks.orbiting):
+                si = lookup.get(clocks.station[j], -1)
+                if si < 0 or not stations.has_coordinates[si]:
+                    station_ok[j] = False
+                    continue
+                _, lat, _ = erfa.gc2gd(1, stations.position_m[si])
+                ground_rate[j] = normal_gravity_m_per_s2(lat) * clocks.height_above_geoid_m[j] / C2
+        for j in np.flatnonzero(clocks.orbiting):
+            mean_j2[j] = _mean_j2_rate(*clocks.elements[j, :5])
+        tcg = params["coordinate_time"] == "TCG"
+        shift = -K.L_G if tcg else 0.0  # d tau/dTCG - 1 = (d tau/dTT - 1) - L_G (first order)
+
+        remote = clocks.index(table["remote_clock"].to_numpy(zero_copy_only=False))
+        reference = clocks.index(table["reference_clock"].to_numpy(zero_copy_only=False))
+        unknown = (remote < 0) | (reference < 0)
+        r, f = np.where(remote < 0, 0, remote), np.where(reference < 0, 0, reference)
+        bad_station = ~unknown & (~station_ok[r] | ~station_ok[f])
+
+        ep_mjd, ep_sod = _parse_epoch(params["reference_epoch_tt"])
+        dt = (table["tt_mjd"].to_numpy().astype(np.int64) - ep_mjd) * 86400.0 + (table["tt_sod_s"].to_numpy() - ep_sod)
+        is_freq = np.asarray(pc.fill_null(pc.equal(table["observable"], "fractional_frequency"), False)
+                             .to_numpy(zero_copy_only=False), dtype=bool)
+        tau = table["averaging_s"].to_numpy(zero_copy_only=False).astype(float) if "averaging_s" in table.column_names \
+            else np.full(n, np.nan)
+        half = np.where(is_freq & np.isfinite(tau), tau / 2.0, 0.0)
+
+        out = {c.name: np.full(n, np.nan) for c in self.provides}
+        offsets = {}
+        for role, idx_all in (("remote", r), ("reference", f)):
+            orb = clocks.orbiting[idx_all]
+            rate = np.full(n, np.nan)
+            off = {s: np.full(n, np.nan) for s in (-1, 0, 1)}   # accumulated time at t - tau/2, t, t + tau/2
+            if (~orb).any():
+                g = ~orb
+                rate[g] = ground_rate[idx_all[g]] + shift
+                for s in off:
+                    off[s][g] = rate[g] * (dt[g] + s * half[g])
+            if orb.any():
+                o = np.flatnonzero(orb)
+                el = clocks.elements[idx_all[o]]
+                a, e, inc, raan, argp, m0 = el.T
+                t_el = (clocks.epoch_tt_mjd[idx_all[o]] - ep_mjd) * 86400.0 + (clocks.epoch_tt_sod_s[idx_all[o]] - ep_sod)
+                pos, vel, _ = cr.kepler_state(a, e, inc, raan, argp, m0, t_el, dt[o])
+                terms = cr.clock_rate_terms(pos, vel)
+                rate[o] = terms["total"] + shift
+                secular = cr.kepler_secular_rate(a) + mean_j2[idx_all[o]] + shift
+                _, _, e_ref = cr.kepler_state(a, e, inc, raan, argp, m0, t_el, np.zeros(o.size))
+                for s in off:
+                    ts_ = dt[o] + s * half[o]
+                    _, _, e_now = cr.kepler_state(a, e, inc, raan, argp, m0, t_el, ts_)
+                    periodic = -2.0 * np.sqrt(K.GM_EARTH_TT_M3_PER_S2 * a) * e * (np.sin(e_now) - np.sin(e_ref)) / C2
+                    off[s][o] = secular * ts_ + periodic
+                if role == "remote":
+                    out["remote_rate_gravitational"][o] = terms["gravitational"] + shift
+                    out["remote_rate_j2"][o] = terms["j2"]
+                    out["remote_rate_velocity"][o] = terms["velocity"]
+                    out["remote_offset_secular_s"][o] = secular * dt[o]
+                    out["remote_offset_periodic_s"][o] = off[0][o] - secular * dt[o]
+                    out["eccentricity_term_s"][o] = cr.eccentricity_term_s(pos, vel)
+            if role == "remote":
+                out["remote_rate_total"] = rate
+                g = ~orb
+                out["remote_offset_secular_s"][g] = off[0][g]
+                out["remote_offset_periodic_s"][g] = 0.0
+                out["remote_rate_gravitational"][g] = rate[g]
+                out["remote_rate_j2"][g] = 0.0
+                out["remote_rate_velocity"][g] = 0.0
+            else:
+                out["reference_rate_total"] = rate
+                out["reference_offset_s"] = off[0]
+            offsets[role] = off
+
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mean_rate = ((offsets["remote"][1] - offsets["remote"][-1]) - (offsets["reference"][1] - offsets["reference"][-1])) / (2 * half)
+        predicted = np.where(is_freq, mean_rate, offsets["remote"][0] - offsets["reference"][0])
+        bad = unknown | bad_station
+        predicted[bad] = np.nan
+        out["relativistic_prediction"] = predicted
+        out["value_corrected"] = table["value"].to_numpy() - predicted
+        return StageResult(columns=out, quarantine={"clock_unknown": unknown, "clock_station_unknown": bad_station})

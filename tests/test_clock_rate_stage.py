@@ -1,0 +1,113 @@
+"""The clock_rate stage against published values.
+
+* A clock on a circular orbit of a = 26 561.75 km against a clock on the geoid runs fast by
+  4.4647e-10 = 38.575 us/day (references sheet, recomputed from IERS 2010 constants; the
+  factory offset of IS-GPS-200 sec. 3.3.1.1 is -4.4647e-10).  The mean J2 term of an inclined
+  orbit moves it by ~3e-15 (Ashby 2003 sec. 5): tolerance 1e-14.
+* Eccentricity term amplitude 22.9 ns for e = 0.01, sqrt(A) = 5153.8 sqrt(m) (references sheet,
+  recomputed: F e sqrt(A) with F = -4.442807633e-10 s/sqrt(m), IS-GPS-200).
+* A ground clock 1000 m above the geoid runs fast by g H / c^2 ~ 1.09e-13 (references sheet:
+  1.09e-16 per metre, recomputed).
+* Referred to TCG, every rate shifts by -L_G = -6.969290134e-10 (IAU 2000 Res. B1.9).
+"""
+from __future__ import annotations
+
+import numpy as np
+import pyarrow as pa
+import pytest
+
+from stages.base import StageContext
+from stages.clock_rate import ClockRate
+
+CATALOGUE = """format = "relcorr-clocks/1"
+[clocks.CIRC]
+kind = "orbiting"
+semi_major_axis_m = 26561750.0
+eccentricity = 0.0
+inclination_deg = 55.0
+raan_deg = 0.0
+argument_of_perigee_deg = 0.0
+mean_anomaly_deg = 0.0
+elements_epoch_tt = 2020-01-01T00:00:00
+[clocks.ECC]
+kind = "orbiting"
+semi_major_axis_m = {a_ecc!r}
+eccentricity = 0.01
+inclination_deg = 55.0
+raan_deg = 0.0
+argument_of_perigee_deg = 0.0
+mean_anomaly_deg = 0.0
+elements_epoch_tt = 2020-01-01T00:00:00
+[clocks.GEOID]
+kind = "ground"
+station = "EQ"
+height_above_geoid_m = 0.0
+[clocks.HIGH]
+kind = "ground"
+station = "EQ"
+height_above_geoid_m = 1000.0
+"""
+STATIONS = """format = "relcorr-stations/1"
+[stations.EQ]
+position_m = [6378137.0, 0.0, 0.0]
+reference_epoch = 2020-01-01
+"""
+
+
+@pytest.fixture
+def ctx(tmp_path):
+    (tmp_path / "clocks.toml").write_text(CATALOGUE.format(a_ecc=5153.8**2))
+    (tmp_path / "stations.toml").write_text(STATIONS)
+    return StageContext("clock", {}, base_dir=str(tmp_path))
+
+
+def _table(remote, reference, observable, sod, tau=300.0):
+    n = len(sod)
+    return pa.table({"remote_clock": [remote] * n, "reference_clock": [reference] * n, "observable": [observable] * n,
+                     "value": np.zeros(n), "tt_mjd": pa.array([58849] * n, pa.int32()),  # 2020-01-01
+                     "tt_sod_s": np.asarray(sod, float), "averaging_s": np.full(n, tau)})
+
+
+PARAMS = {**ClockRate.defaults(), "reference_epoch_tt": "2020-01-01T00:00:00"}
+
+
+def test_circular_orbit_against_the_geoid(ctx):
+    sod = np.linspace(0, 86400, 97)
+    res = ClockRate().apply(_table("CIRC", "GEOID", "fractional_frequency", sod), PARAMS, ctx)
+    y = np.asarray(res.columns["relativistic_prediction"])
+    assert np.abs(y - 4.4647e-10).max() < 1e-14
+    assert np.asarray(res.columns["reference_rate_total"]) == pytest.approx(0.0, abs=1e-20)
+    res = ClockRate().apply(_table("CIRC", "GEOID", "time_offset", [86400.0]), PARAMS, ctx)
+    assert res.columns["relativistic_prediction"][0] == pytest.approx(38.575e-6, rel=3e-5, abs=0)  # us/day
+    grav = 45.79e-6 / 86400.0
+    assert np.asarray(res.columns["remote_rate_gravitational"])[0] == pytest.approx(grav, rel=3e-4, abs=0)
+    assert np.asarray(res.columns["remote_rate_velocity"])[0] == pytest.approx(-7.21e-6 / 86400.0, rel=1e-3, abs=0)
+
+
+def test_eccentricity_term_amplitude(ctx):
+    period = 2 * np.pi * np.sqrt((5153.8**2) ** 3 / 3.986004415e14)
+    sod = np.linspace(0, period, 2001)
+    res = ClockRate().apply(_table("ECC", "GEOID", "time_offset", sod), PARAMS, ctx)
+    ecc = np.asarray(res.columns["eccentricity_term_s"])
+    assert ecc.max() == pytest.approx(22.9e-9, abs=0.05e-9) and ecc.min() == pytest.approx(-22.9e-9, abs=0.05e-9)
+    # the periodic part of the accumulated time is that term, counted from the reference epoch
+    periodic = np.asarray(res.columns["remote_offset_periodic_s"])
+    assert np.abs(periodic - (ecc - ecc[0])).max() < 1e-15
+
+
+def test_ground_clock_height_and_tcg(ctx):
+    res = ClockRate().apply(_table("HIGH", "GEOID", "fractional_frequency", [0.0]), PARAMS, ctx)
+    assert res.columns["relativistic_prediction"][0] == pytest.approx(1000 * 1.09e-16, rel=3e-3, abs=0)
+    tt = ClockRate().apply(_table("CIRC", "HIGH", "fractional_frequency", [500.0]), PARAMS, ctx).columns
+    tcg = ClockRate().apply(_table("CIRC", "HIGH", "fractional_frequency", [500.0]),
+                            {**PARAMS, "coordinate_time": "TCG"}, ctx).columns
+    L_G = 6.969290134e-10
+    assert tcg["remote_rate_total"][0] - tt["remote_rate_total"][0] == pytest.approx(-L_G, rel=1e-12, abs=0)
+    assert tcg["reference_rate_total"][0] - tt["reference_rate_total"][0] == pytest.approx(-L_G, rel=1e-12, abs=0)
+    # the difference between the two clocks does not depend on the coordinate time
+    assert tcg["relativistic_prediction"][0] == pytest.approx(tt["relativistic_prediction"][0], rel=1e-9, abs=0)
+
+
+def test_unknown_clock_is_quarantined(ctx):
+    res = ClockRate().apply(_table("NOPE", "GEOID", "time_offset", [0.0]), PARAMS, ctx)
+    assert list(res.quarantine["clock_unknown"]) == [True]
