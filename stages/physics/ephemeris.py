@@ -141,7 +141,8 @@ def de421_path() -> Path:
     return Path(skyfield_data.__file__).parent / "data" / "de421.bsp"
 
 
-def _sha256(path: Path) -> str:
+def sha256_of_file(path: Path) -> str:
+    """sha256 of a model file, read in 1 MiB blocks: the identity recorded in fingerprints and manifests."""
     h = hashlib.sha256()
     with open(path, "rb") as f:
         for block in iter(lambda: f.read(1 << 20), b""):
@@ -185,7 +186,7 @@ class PlanetaryEphemeris:
             "source": source,
             "package_version": package_version,
             "file": self.path.name,
-            "sha256": _sha256(self.path),
+            "sha256": sha256_of_file(self.path),
             "name": self.name,
         }
 

@@ -47,7 +47,6 @@ Times: every difference t - t0 is formed as (day difference) * 86400 +
 """
 from __future__ import annotations
 
-import hashlib
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -57,7 +56,7 @@ import pyarrow.compute as pc
 import pyarrow.parquet as pq
 
 from . import constants as K
-from .ephemeris import BODIES, PlanetaryEphemeris
+from .ephemeris import BODIES, PlanetaryEphemeris, sha256_of_file
 
 __all__ = [
     "CENTRES",
@@ -359,14 +358,6 @@ def _hermite_block(pos_tab, vel_tab, k, s, h, out_p, out_v) -> None:
     out_v += v1
 
 
-def _sha256(path: Path) -> str:
-    h = hashlib.sha256()
-    with open(path, "rb") as f:
-        for block in iter(lambda: f.read(1 << 20), b""):
-            h.update(block)
-    return h.hexdigest()
-
-
 def load_state_table(path: str | Path) -> StateTable:
     """Read and validate a state table (Parquet, format in the module docstring).
 
@@ -378,7 +369,7 @@ def load_state_table(path: str | Path) -> StateTable:
         table = pq.read_table(path)
     except (OSError, pa.ArrowException) as exc:
         raise ValueError(f"{path}: cannot read as Parquet: {exc}") from None
-    ident = {"file": path.name, "sha256": _sha256(path), "rows": int(table.num_rows)}
+    ident = {"file": path.name, "sha256": sha256_of_file(path), "rows": int(table.num_rows)}
     return StateTable.from_arrow(table, label=str(path), identity=ident)
 
 
