@@ -180,7 +180,18 @@ def _clock_relativity(cfg: Config, t: np.ndarray, ref: np.ndarray, obs: np.ndarr
                       "reference_clock": pa.array(ref, pa.string()), "observable": pa.array(obs, pa.string()),
                       "value": np.zeros(n), "tt_mjd": pa.array(np.asarray(ts["tt_mjd"]), pa.int32()),
                       "tt_sod_s": np.asarray(ts["tt_sod_s"]), "averaging_s": np.full(n, 300.0)})
-    return np.asarray(ClockRate().apply(table, spec.params, ctx).columns["relativistic_prediction"])
+    predicted = np.asarray(ClockRate().apply(table, spec.params, ctx).columns["relativistic_prediction"])
+    sag = next((sp for sp in cfg.stages if sp.name == "sagnac"), None)
+    if sag is not None:
+        # the laboratories formed their offsets with the Earth-fixed straight-line delay: the
+        # recorded offsets lack the Sagnac term that the sagnac stage puts back
+        from stages.sagnac import Sagnac
+
+        table = table.append_column("utc_mjd", pa.array(mjd, pa.int32())).append_column(
+            "utc_sod_ps", pa.array(sod_ps, pa.int64()))
+        corr = np.asarray(Sagnac().apply(table, sag.params, ctx).columns["sagnac_offset_correction_s"])
+        predicted = predicted - np.where((obs == "time_offset") & np.isfinite(corr), corr, 0.0)
+    return predicted
 
 
 # ---------------------------------------------------------------------------- conjunction scenario

@@ -103,7 +103,8 @@ class ClockRate(Stage):
         Column("tt_mjd", pa.int32(), "d", "epoch, TT day"),
         Column("tt_sod_s", pa.float64(), "s", "epoch, TT seconds of day"),
     )
-    optional = (Column("averaging_s", pa.float64(), "s", "averaging interval of fractional_frequency records"),)
+    optional = (Column("averaging_s", pa.float64(), "s", "averaging interval of fractional_frequency records"),
+                Column("sagnac_offset_correction_s", pa.float64(), "s", "from the sagnac stage, added to time_offset records"))
     provides = (
         _f64("remote_rate_gravitational", "1", "remote clock: L_G - GM/(r c^2), monopole (0 for a ground clock: see total)"),
         _f64("remote_rate_j2", "1", "remote clock: J2 part of the potential term"),
@@ -115,7 +116,8 @@ class ClockRate(Stage):
         _f64("eccentricity_term_s", "s", "remote clock: -2 r.v/c^2 at the epoch (IS-GPS-200 F e sqrt(A) sin E)"),
         _f64("reference_offset_s", "s", "reference clock: tau - t accumulated since the reference epoch"),
         _f64("relativistic_prediction", "s|1", "predicted relativistic part of the observable (remote - reference)"),
-        _f64("value_corrected", "s|1", "observed value minus the relativistic prediction: the clocks' own behaviour"),
+        _f64("value_corrected", "s|1", "observed value (plus the Sagnac correction of time offsets when the sagnac stage "
+                                     "ran first) minus the relativistic prediction: the clocks' own behaviour"),
     )
     params = (
         Param("clocks", "str", "clocks.toml", "clock catalogue (relative to the config file)"),
@@ -256,5 +258,9 @@ class ClockRate(Stage):
         bad = unknown | bad_station
         predicted[bad] = np.nan
         out["relativistic_prediction"] = predicted
-        out["value_corrected"] = table["value"].to_numpy() - predicted
+        value = table["value"].to_numpy()
+        if "sagnac_offset_correction_s" in table.column_names:  # the sagnac stage ran first
+            sag = table["sagnac_offset_correction_s"].to_numpy(zero_copy_only=False).astype(float)
+            value = value + np.where(~is_freq & np.isfinite(sag), sag, 0.0)
+        out["value_corrected"] = value - predicted
         return StageResult(columns=out, quarantine={"clock_unknown": unknown, "clock_station_unknown": bad_station})
