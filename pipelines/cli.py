@@ -191,11 +191,25 @@ def _print_summary(manifest: dict) -> None:
                   f"{_n(a.get('rows_in')):>10}{_n(a.get('rows_out')):>10}{_n(a.get('rows_quarantined')):>8}")
         if p["status"] != "ok":
             print(f"{'':<26}FAILED: {p.get('error')}")
+    series = [(p["partition"], name, st) for p in manifest["partitions"] for a in p["steps"]
+              for name, st in (a.get("summary") or {}).items()]
+    if series:
+        print()
+        print(f"{'partition':<26}{'series (remote|reference|observable)':<52}{'mean y':>11}{'drift/day':>11}  ADEV(1, 10, 100 tau0)")
+        for part, name, st in series:
+            adev = ", ".join(f"{x:.2e}" for x in (st.get("adev") or []) if x is not None) or "-"
+            y, d = st.get("mean_fractional_frequency"), st.get("drift_per_day")
+            print(f"{part:<26}{name:<52}{_e(y):>11}{_e(d):>11}  {adev}")
+        print()
     t = manifest["totals"]
     print(f"{'total':<26}{'':<18}{'':<9}{t['rows_in']:>10}{t['rows_out']:>10}{t['rows_quarantined']:>8}")
     verdict = "balanced" if t["balanced"] else "NOT BALANCED"
     print(f"rows in = rows out + rows quarantined: {t['rows_in']} = {t['rows_out']} + {t['rows_quarantined']} ({verdict})")
     print(f"status: {manifest['run']['status']}")
+
+
+def _e(v) -> str:
+    return "-" if v is None else f"{v:.3e}"
 
 
 def _n(v) -> str:

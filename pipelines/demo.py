@@ -126,9 +126,12 @@ def _tracking_day(rng, day, n, k) -> pa.Table:
 
 
 def _clock_day(rng, day, n, k, cfg: Config | None = None) -> pa.Table:
-    t = _times(rng, day, n)
-    ref = rng.choice(REFERENCE_CLOCKS, n).astype(object)
-    freq = rng.random(n) < 0.3
+    # regular sampling: record i at i * 86400/n s; the four series (two reference clocks x two
+    # observables) each every 4 * 86400/n s, so that their Allan deviations can be computed
+    i = np.arange(n)
+    t = day.astype("datetime64[ns]") + (i * (86400 * 10**9 // n)).astype("timedelta64[ns]")
+    ref = np.where(i % 2 == 0, REFERENCE_CLOCKS[0], REFERENCE_CLOCKS[1]).astype(object)
+    freq = (i // 2) % 2 == 1
     obs = np.where(freq, "fractional_frequency", "time_offset").astype(object)
     seconds = (t - np.datetime64("2016-12-31", "ns")).astype(float) / 1e9
     # the invented clock's own behaviour: offset 3 us, rate +2e-12, white noise
@@ -136,6 +139,8 @@ def _clock_day(rng, day, n, k, cfg: Config | None = None) -> pa.Table:
     rate = 2e-12 + rng.normal(0, 1e-13, n)
     relativistic = _clock_relativity(cfg, t, ref, obs) if cfg is not None else np.zeros(n)
     offset_s, rate = offset_s + relativistic, rate + relativistic
+    if k == 1:
+        offset_s[seconds > 86400.0 * 1.5] += 5e-9   # the invented clock jumps by 5 ns at 12:00 on day two
     value = np.where(freq, rate, offset_s)
     sigma = np.where(freq, 1e-13, 2e-10)
     tau = np.where(freq, 300.0, np.nan)

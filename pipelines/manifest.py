@@ -104,6 +104,8 @@ def _step_activity(step: Step, run_id: str, complete: bool) -> dict[str, Any]:
     act["rows_out"] = stats.get("rows_out")
     act["rows_quarantined"] = stats.get("rows_quarantined")
     act["reasons"] = stats.get("reasons", {})
+    if "summary" in stats:
+        act["summary"] = stats["summary"]  # e.g. per-clock statistics of a whole-partition pass
     if "flags" in stats:
         act["flags"] = stats["flags"]  # value counts of the stage's per-record status columns
     act["outputs"] = [_file_entity(step.output, "records"), _file_entity(step.quarantine, "quarantine")]

@@ -7,6 +7,7 @@ expected fingerprint in its Parquet metadata.
 """
 from __future__ import annotations
 
+import dataclasses
 import json
 import time
 import traceback
@@ -171,6 +172,11 @@ class StageTask(_PartitionTask):
         pf = pq.ParquetFile(upstream.output)
         in_schema = pa.schema(list(pf.schema_arrow))
         provided = [c.field() for c in sp.cls.provides]
+        summary = None
+        if sp.cls.partition_columns:  # a whole-partition pass over a few projected columns
+            state = stage.prepare(pf.read(columns=list(sp.cls.partition_columns)), sp.params, ctx)
+            ctx = dataclasses.replace(ctx, state=state)
+            summary = getattr(state, "summary", None)
         writer = AtomicParquetWriter(step.output, pa.schema(list(in_schema) + provided), _meta(step, self.partition, "records"))
         qwriter = AtomicParquetWriter(step.quarantine, ingest_mod.quarantine_schema(in_schema), _meta(step, self.partition, "quarantine"))
         reasons: dict[str, int] = {}
@@ -192,6 +198,8 @@ class StageTask(_PartitionTask):
         stats = {"rows_in": pf.metadata.num_rows, "rows_out": writer.rows, "rows_quarantined": qwriter.rows,
                  "reasons": dict(sorted(reasons.items())),
                  "flags": {c: dict(sorted(acc.items())) for c, acc in flags.items()}}
+        if summary is not None:
+            stats["summary"] = summary
         return self._finish(step, stats, writer, qwriter, started)
 
 

@@ -119,6 +119,8 @@ class StageContext:
     partition: str = ""
     #: names of the columns the stage will receive (known before anything runs)
     columns: frozenset = frozenset()
+    #: what the stage's ``prepare`` computed over the whole partition (None without one)
+    state: Any = None
     #: folder that relative paths in stage parameters are taken from: the config file's
     #: folder (``--base-dir`` moves the data folders only, not the model files)
     base_dir: str = "."
@@ -172,6 +174,17 @@ class Stage:
     flag_columns: ClassVar[tuple[str, ...]] = ()
     #: reason codes the stage may quarantine with, and their meaning
     quarantine_reasons: ClassVar[Mapping[str, str]] = {}
+
+    #: columns the stage needs from the whole partition before its batches run (see ``prepare``)
+    partition_columns: ClassVar[tuple[str, ...]] = ()
+
+    def prepare(self, columns: pa.Table, params: Mapping[str, Any], context: StageContext) -> Any:
+        """A pass over the whole partition, for what a batch alone cannot tell (steps in a clock
+        series, epochs out of order).  ``columns`` holds only ``partition_columns`` (the pipeline
+        reads them with projection, so memory is a few bytes per record).  The return value
+        reaches ``apply`` as ``context.state``; if it has a ``summary`` attribute (a dict of plain
+        values), the run's manifest records it with the stage's activity."""
+        return None
 
     def validate(self, params: Mapping[str, Any], context: StageContext) -> dict[str, str]:
         """Problems with the resolved parameters that a type check cannot see

@@ -230,6 +230,12 @@ def test_sample_configs_run(tmp_path, capsys):
         q = pq.read_table(base / "products" / f"{m['partitions'][0]['partition']}.quarantine.parquet")
         steps = {"ingest", "stations"} if name == "demo.toml" else {"ingest"}
         assert q.num_rows > 0 and set(q["quarantine_step"].to_pylist()) == steps
+        if name == "clock_demo.toml":
+            # the invented clock jumps by 5 ns on day two: both series that see it carry the flag
+            day2 = [p for p in m["partitions"] if p["partition"] == "clock-2017-01-01"][0]
+            series = [a for a in day2["steps"] if a["step"] == "clock_series"][0]
+            assert series["flags"]["series_flag"].get("time_step") == 2
+            assert len(series["summary"]) == 4
 
 
 def test_central_scheduler(tmp_path, write_config):
