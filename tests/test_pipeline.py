@@ -272,3 +272,14 @@ def test_central_scheduler(tmp_path, write_config):
     finally:
         proc.terminate()
         proc.wait(timeout=10)
+
+
+def test_demo_command(tmp_path, capsys, monkeypatch):
+    """The README's first command ends in `relcorr demo`: it finds sample_configs/demo.toml, generates
+    the invented raw files, runs the chain and says where the products and the manifest are."""
+    monkeypatch.chdir(tmp_path)
+    assert main(["demo", "--dir", str(tmp_path / "demo")]) == EXIT_OK
+    out = capsys.readouterr().out
+    assert f"products  {tmp_path / 'demo' / 'products'}" in out and "manifest  " in out
+    assert (tmp_path / "demo" / "products" / "tracking-2016-12-31.parquet").is_file()
+    assert (tmp_path / "demo" / "products" / "tracking-2016-12-31.quarantine.parquet").is_file()
