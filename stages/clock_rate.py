@@ -80,6 +80,56 @@ def _mean_j2_rate(a_m, e, i_rad, raan_rad, argp_rad, samples: int = 720) -> floa
     return float(np.mean(cr.clock_rate_terms(pos, vel)["j2"]))
 
 
+@functools.lru_cache(maxsize=8)
+def _states_cached(path: str, mtime_ns: int, size: int):
+    from stages.physics.spacecraft_ephemeris import load_state_table
+
+    return load_state_table(path)
+
+
+def _hermite_cumulative(t_nodes, cum, rate, tq, max_gap_s):
+    """The accumulated time at ``tq`` from its values ``cum`` and derivatives ``rate`` at the nodes:
+    cubic Hermite between the two bracketing nodes (error h^4/384 max |d3 rate/dt3|, < 1e-15 s for
+    5-minute states of an orbit at 26 000 km).  NaN outside the nodes or across a gap > max_gap_s."""
+    k = np.clip(np.searchsorted(t_nodes, tq, side="right") - 1, 0, len(t_nodes) - 2)
+    h = t_nodes[k + 1] - t_nodes[k]
+    s = (tq - t_nodes[k]) / h
+    s2, s3 = s * s, s * s * s
+    out = ((2 * s3 - 3 * s2 + 1) * cum[k] + (s3 - 2 * s2 + s) * h * rate[k]
+           + (-2 * s3 + 3 * s2) * cum[k + 1] + (s3 - s2) * h * rate[k + 1])
+    bad = ~np.isfinite(tq) | (tq < t_nodes[0]) | (tq > t_nodes[-1]) | ((h > max_gap_s) & (s > 0) & (s < 1))
+    return np.where(bad, np.nan, out)
+
+
+def _state_orbit(states, target, tt_mjd, tt_sod, dt, half, max_gap_s, ep_mjd, ep_sod):
+    """Rate terms and accumulated times of a clock whose orbit is a state table (centre: the Earth).
+
+    The accumulated time is the integral of the full rate (monopole, J2, velocity) along the
+    tabulated states (``integrate_rate_s``, fourth order), interpolated to the records; its
+    constant-rate part is the least-squares slope of that integral less the eccentricity term,
+    the rest (the eccentricity term and the periodic J2 part) is the periodic part.
+    State epochs are TDB: a record's TT epoch becomes TDB with the geocentric TDB - TT series."""
+    from stages.physics import time_scales as tsp
+
+    tdb_m, tdb_s = tsp.add_seconds(tt_mjd, tt_sod, tsp.tdb_minus_tt_s(tt_mjd, tt_sod))
+    pos, vel, status = states.posvel_centre_m(target, tdb_m, tdb_s, max_gap_s)
+    terms = cr.clock_rate_terms(pos, vel)
+    n_mjd, n_sod, n_pos, n_vel = states.nodes(target)
+    n_mjd = np.asarray(n_mjd, dtype=np.int64)
+    tt_nm, tt_ns = tsp.add_seconds(n_mjd, n_sod, -tsp.tdb_minus_tt_s(n_mjd, n_sod))
+    t_nodes = (tt_nm - ep_mjd) * 86400.0 + (tt_ns - ep_sod)
+    rate_nodes = cr.clock_rate_terms(n_pos, n_vel)["total"]
+    cum = cr.integrate_rate_s(t_nodes, rate_nodes)
+    zero = _hermite_cumulative(t_nodes, cum, rate_nodes, np.zeros(1), max_gap_s)[0]  # at the reference epoch
+    # constant-rate part: the slope of the accumulated time once the eccentricity term -2 r.v/c^2 is
+    # taken out (for a Kepler orbit what is left is exactly linear; Ashby 2003 sec. 5), least squares
+    slope_of = cum - cr.eccentricity_term_s(n_pos, n_vel)
+    secular = float(np.polyfit(t_nodes - t_nodes.mean(), slope_of, 1)[0])
+    offsets = {s: _hermite_cumulative(t_nodes, cum, rate_nodes, dt + s * half, max_gap_s) - zero for s in (-1, 0, 1)}
+    bad = (status != 0) | ~np.isfinite(offsets[-1]) | ~np.isfinite(offsets[1]) | ~np.isfinite(zero)
+    return terms, offsets, secular, cr.eccentricity_term_s(pos, vel), bad
+
+
 def _parse_epoch(text: str):
     ep = datetime.datetime.fromisoformat(text)
     mjd = ep.date().toordinal() - 678576
@@ -125,6 +175,8 @@ class ClockRate(Stage):
         Param("reference_epoch_tt", "str", "2000-01-01T12:00:00",
               "epoch from which accumulated times are counted (ISO date-time, TT)"),
         Param("coordinate_time", "str", "TT", "coordinate time the clocks are referred to", choices=("TT", "TCG")),
+        Param("max_gap_s", "float", 3600.0, "widest gap between tabulated states the interpolation may bridge",
+              unit="s", minimum=1.0, maximum=86400.0),
     )
     references = (
         Reference("IERS Conventions (2010), IERS TN 36, sec. 10.2 and Table 1.1", "proper time of a clock near the Earth; L_G, GM, J2"),
@@ -136,6 +188,8 @@ class ClockRate(Stage):
     quarantine_reasons = {
         "clock_unknown": "the remote or reference clock is not in the clock catalogue",
         "clock_station_unknown": "a ground clock's station is not in the station catalogue (or has no position)",
+        "orbit_outside_coverage": "the record's epoch (or its averaging interval, or the reference epoch) is outside "
+                                  "the clock's state table, or in a gap wider than max_gap_s",
     }
 
     def validate(self, params, context):
@@ -187,7 +241,8 @@ class ClockRate(Stage):
                     continue
                 _, lat, _ = erfa.gc2gd(1, stations.position_m[si])
                 ground_rate[j] = normal_gravity_m_per_s2(lat) * clocks.height_above_geoid_m[j] / C2
-        for j in np.flatnonzero(clocks.orbiting):
+        by_elements = clocks.orbiting & (clocks.states_file == "")
+        for j in np.flatnonzero(by_elements):
             mean_j2[j] = _mean_j2_rate(*clocks.elements[j, :5])
         tcg = params["coordinate_time"] == "TCG"
         shift = -K.L_G if tcg else 0.0  # d tau/dTCG - 1 = (d tau/dTT - 1) - L_G (first order)
@@ -199,6 +254,9 @@ class ClockRate(Stage):
         bad_station = ~unknown & (~station_ok[r] | ~station_ok[f])
 
         ep_mjd, ep_sod = _parse_epoch(params["reference_epoch_tt"])
+        tt_mjd_all = table["tt_mjd"].to_numpy().astype(np.int64)
+        tt_sod_all = table["tt_sod_s"].to_numpy()
+        outside = np.zeros(n, dtype=bool)
         dt = (table["tt_mjd"].to_numpy().astype(np.int64) - ep_mjd) * 86400.0 + (table["tt_sod_s"].to_numpy() - ep_sod)
         is_freq = np.asarray(pc.fill_null(pc.equal(table["observable"], "fractional_frequency"), False)
                              .to_numpy(zero_copy_only=False), dtype=bool)
@@ -217,8 +275,27 @@ class ClockRate(Stage):
                 rate[g] = ground_rate[idx_all[g]] + shift
                 for s in off:
                     off[s][g] = rate[g] * (dt[g] + s * half[g])
-            if orb.any():
-                o = np.flatnonzero(orb)
+            orb_states = orb & (clocks.states_file[idx_all] != "")
+            orb_el = orb & ~orb_states
+            for j in np.unique(idx_all[orb_states]):  # a loop over state-table clocks, not records
+                o = np.flatnonzero(orb_states & (idx_all == j))
+                states = _cached(_states_cached, clocks.states_file[j])
+                terms, offs, secular, ecc, bad_o = _state_orbit(
+                    states, clocks.states_target[j], tt_mjd_all[o], tt_sod_all[o], dt[o], half[o],
+                    params["max_gap_s"], ep_mjd, ep_sod)
+                rate[o] = terms["total"] + shift
+                for s_ in off:
+                    off[s_][o] = offs[s_] + shift * (dt[o] + s_ * half[o])
+                outside[o] |= bad_o
+                if role == "remote":
+                    out["remote_rate_gravitational"][o] = terms["gravitational"] + shift
+                    out["remote_rate_j2"][o] = terms["j2"]
+                    out["remote_rate_velocity"][o] = terms["velocity"]
+                    out["remote_offset_secular_s"][o] = (secular + shift) * dt[o]
+                    out["remote_offset_periodic_s"][o] = off[0][o] - (secular + shift) * dt[o]
+                    out["eccentricity_term_s"][o] = ecc
+            if orb_el.any():
+                o = np.flatnonzero(orb_el)
                 el = clocks.elements[idx_all[o]]
                 a, e, inc, raan, argp, m0 = el.T
                 t_el = (clocks.epoch_tt_mjd[idx_all[o]] - ep_mjd) * 86400.0 + (clocks.epoch_tt_sod_s[idx_all[o]] - ep_sod)
@@ -255,7 +332,8 @@ class ClockRate(Stage):
         with np.errstate(invalid="ignore", divide="ignore"):
             mean_rate = ((offsets["remote"][1] - offsets["remote"][-1]) - (offsets["reference"][1] - offsets["reference"][-1])) / (2 * half)
         predicted = np.where(is_freq, mean_rate, offsets["remote"][0] - offsets["reference"][0])
-        bad = unknown | bad_station
+        outside &= ~(unknown | bad_station)
+        bad = unknown | bad_station | outside
         predicted[bad] = np.nan
         out["relativistic_prediction"] = predicted
         value = table["value"].to_numpy()
@@ -263,4 +341,5 @@ class ClockRate(Stage):
             sag = table["sagnac_offset_correction_s"].to_numpy(zero_copy_only=False).astype(float)
             value = value + np.where(~is_freq & np.isfinite(sag), sag, 0.0)
         out["value_corrected"] = value - predicted
-        return StageResult(columns=out, quarantine={"clock_unknown": unknown, "clock_station_unknown": bad_station})
+        return StageResult(columns=out, quarantine={"clock_unknown": unknown, "clock_station_unknown": bad_station,
+                                                    "orbit_outside_coverage": outside})

@@ -111,3 +111,53 @@ def test_ground_clock_height_and_tcg(ctx):
 def test_unknown_clock_is_quarantined(ctx):
     res = ClockRate().apply(_table("NOPE", "GEOID", "time_offset", [0.0]), PARAMS, ctx)
     assert list(res.quarantine["clock_unknown"]) == [True]
+
+
+def _write_states(path, a, e, t0_tt_mjd=58849, span_s=2 * 86400.0, step_s=300.0):
+    """A geocentric state table of a Kepler orbit (the test's own orbit model; state epochs TDB)."""
+    from stages.physics import clock_rates as cr
+    from stages.physics import time_scales as tsp
+
+    t = np.arange(-step_s * 4, span_s + step_s * 5, step_s)
+    pos, vel, _ = cr.kepler_state(a, e, np.radians(55.0), 0.0, 0.0, 0.0, 0.0, t)
+    mjd = np.full(t.size, t0_tt_mjd, dtype=np.int64) + np.floor(t / 86400.0).astype(np.int64)
+    sod = t - np.floor(t / 86400.0) * 86400.0
+    # label the states in TDB: the stage converts back with the same series
+    tdb_m, tdb_s = tsp.add_seconds(mjd, sod, tsp.tdb_minus_tt_s(mjd, sod))
+    pa_tab = pa.table({"target": ["WREN"] * t.size, "tdb_mjd": pa.array(tdb_m, pa.int32()), "tdb_sod_s": tdb_s,
+                       "x_m": pos[:, 0], "y_m": pos[:, 1], "z_m": pos[:, 2],
+                       "vx_m_per_s": vel[:, 0], "vy_m_per_s": vel[:, 1], "vz_m_per_s": vel[:, 2],
+                       "centre": ["earth"] * t.size})
+    import pyarrow.parquet as pq
+
+    pq.write_table(pa_tab, path)
+
+
+def test_state_table_orbit_against_independent_integration(tmp_path):
+    """Accumulated proper time along a tabulated orbit vs the test's own integration of the same rate,
+    dtau/dTT - 1 = L_G - [v^2/2 + U_E(monopole + J2)]/c^2 (IERS TN36 sec. 10.2), by the trapezoid rule on
+    a 1 s grid (error ~ h^2/12 * max|rate''| * T < 1e-16 s)."""
+    from stages.physics import clock_rates as cr
+
+    a, e = 5153.8**2, 0.01
+    _write_states(tmp_path / "wren.parquet", a, e)
+    (tmp_path / "clocks.toml").write_text(CATALOGUE.format(a_ecc=a) + '[clocks.WREN-CS]\nkind = "orbiting"\n'
+                                          'states = "wren.parquet"\nstates_target = "WREN"\n')
+    (tmp_path / "stations.toml").write_text(STATIONS)
+    ctx = StageContext("clock", {}, base_dir=str(tmp_path))
+    sod = np.array([0.0, 3000.0, 40000.0, 86400.0, 150000.0])
+    res = ClockRate().apply(_table("WREN-CS", "GEOID", "time_offset", sod), PARAMS, ctx)
+    got = np.asarray(res.columns["relativistic_prediction"])
+    fine = np.arange(0.0, 150001.0, 1.0)
+    pos, vel, _ = cr.kepler_state(a, e, np.radians(55.0), 0.0, 0.0, 0.0, 0.0, fine)
+    rate = cr.clock_rate_terms(pos, vel)["total"]
+    cum = np.concatenate([[0.0], np.cumsum((rate[1:] + rate[:-1]) / 2.0)])
+    expected = cum[sod.astype(int)]
+    assert np.abs(got - expected).max() < 1e-12, np.abs(got - expected).max()
+    # the periodic part is the eccentricity term, to the J2 periodic part (tens of ps at this radius)
+    periodic = np.asarray(res.columns["remote_offset_periodic_s"])
+    ecc = np.asarray(res.columns["eccentricity_term_s"])
+    assert np.abs(periodic - (ecc - ecc[0])).max() < 1e-10
+    # outside the table: quarantined, never extrapolated
+    res = ClockRate().apply(_table("WREN-CS", "GEOID", "time_offset", [200000.0]), PARAMS, ctx)
+    assert list(res.quarantine["orbit_outside_coverage"]) == [True]

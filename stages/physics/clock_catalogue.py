@@ -14,6 +14,11 @@ Format (version 1)::
     mean_anomaly_deg = 0.0             # at elements_epoch
     elements_epoch_tt = 2016-12-31T00:00:00   # TOML local date-time, read as TT
 
+    [clocks.WREN-CS]                   # an orbiting clock whose orbit is a state table
+    kind = "orbiting"
+    states = "wren-orbit.parquet"      # relcorr state table (see stages.physics.spacecraft_ephemeris),
+    states_target = "WREN"             # centre "earth"; path relative to this catalogue file
+
     [clocks.NORTHLAB-HM1]              # a clock in a ground laboratory
     kind = "ground"
     station = "CFL"                    # its position comes from the station catalogue
@@ -58,6 +63,8 @@ class ClockCatalogue:
     epoch_tt_mjd: np.ndarray        # (k,) int64
     epoch_tt_sod_s: np.ndarray      # (k,) float
     station: np.ndarray             # (k,) object ('' for orbiting)
+    states_file: np.ndarray         # (k,) object: state table path ('' for elements or ground)
+    states_target: np.ndarray       # (k,) object
     height_above_geoid_m: np.ndarray  # (k,) (NaN for orbiting)
     identity: dict
 
@@ -92,13 +99,16 @@ def load_clock_catalogue(path: str | Path) -> ClockCatalogue:
     if not isinstance(clocks, dict) or not clocks:
         raise ClockCatalogueError(f"{path}: clocks: expected a non-empty table of [clocks.NAME] tables")
     codes, orbiting, elements, ep_mjd, ep_sod, station, height = [], [], [], [], [], [], []
+    states_file, states_target = [], []
     for code in sorted(clocks):  # loop over catalogue entries, not records
         entry = clocks[code]
         key = f"clocks.{code}"
         if not isinstance(entry, dict):
             raise ClockCatalogueError(f"{path}: {key}: expected a table")
         kind = entry.get("kind")
-        if kind == "orbiting":
+        if kind == "orbiting" and "states" in entry:
+            allowed = {"kind", "name", "states", "states_target"}
+        elif kind == "orbiting":
             allowed = {"kind", "elements_epoch_tt", "name", *ORBIT_KEYS}
         elif kind == "ground":
             allowed = {"kind", "name", *GROUND_KEYS}
@@ -108,6 +118,24 @@ def load_clock_catalogue(path: str | Path) -> ClockCatalogue:
         if extra:
             raise ClockCatalogueError(f"{path}: {key}.{extra[0]}: unknown key; expected one of {', '.join(sorted(allowed))}")
         codes.append(code)
+        if kind == "orbiting" and "states" in entry:
+            target = entry.get("states_target")
+            if not isinstance(entry["states"], str) or not entry["states"]:
+                raise ClockCatalogueError(f"{path}: {key}.states: found {entry['states']!r}, expected a state-table file name")
+            if not isinstance(target, str) or not target:
+                raise ClockCatalogueError(f"{path}: {key}.states_target: found {target!r}, expected the target's name in the state table")
+            states_path = Path(entry["states"])
+            states_file.append(str(states_path if states_path.is_absolute() else path.resolve().parent / states_path))
+            states_target.append(target)
+            orbiting.append(True)
+            elements.append([np.nan] * 6)
+            ep_mjd.append(0)
+            ep_sod.append(0.0)
+            station.append("")
+            height.append(np.nan)
+            continue
+        states_file.append("")
+        states_target.append("")
         if kind == "orbiting":
             for k in ORBIT_KEYS:
                 if k not in entry:
@@ -141,5 +169,6 @@ def load_clock_catalogue(path: str | Path) -> ClockCatalogue:
         codes=np.array(codes, dtype=object), orbiting=np.array(orbiting), elements=np.array(elements, dtype=float),
         epoch_tt_mjd=np.array(ep_mjd, dtype=np.int64), epoch_tt_sod_s=np.array(ep_sod),
         station=np.array(station, dtype=object), height_above_geoid_m=np.array(height),
+        states_file=np.array(states_file, dtype=object), states_target=np.array(states_target, dtype=object),
         identity={"file": path.name, "sha256": hashlib.sha256(raw).hexdigest(), "format": FORMAT},
     )

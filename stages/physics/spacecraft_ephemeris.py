@@ -149,6 +149,11 @@ class StateTable:
     def centre(self, target: str) -> str:
         return self._tracks[target].centre
 
+    def nodes(self, target: str):
+        """The tabulated states of ``target``, sorted: (tdb_mjd, tdb_sod_s, pos_m, vel_m_per_s), relative to its centre."""
+        tr = self._tracks[target]
+        return tr.mjd, tr.sod_s, tr.pos_m, tr.vel_m_per_s
+
     def coverage_mjd(self, target: str) -> tuple[float, float]:
         """First and last epoch of ``target`` as float TDB MJD (display only)."""
         tr = self._tracks[target]
