@@ -181,7 +181,7 @@ def classify_batch(table: pa.Table, record_kind: str, leap: LeapTable, duplicate
     else:
         rc.mark("clock_missing", _blank(table["remote_clock"]) | _blank(table["reference_clock"]))
         rc.mark("observable_unknown", ~_text_in(table["observable"], schemas.CLOCK_OBSERVABLES))
-        is_freq = _text_in(table["observable"], ["fractional_frequency"])
+        is_freq = _text_in(table["observable"], ["fractional_frequency", "two_way_fractional_frequency"])
         if "averaging_s" in table.column_names:
             tau = _float(table["averaging_s"])
             bad_tau = ~(np.isfinite(tau) & (tau > 0))

@@ -38,7 +38,7 @@ CLOCK = (
     RawColumn("remote_clock", "text", True, "", "the clock being characterised (e.g. on board a satellite)"),
     RawColumn("reference_clock", "text", True, "", "the ground reference clock it is compared with"),
     RawColumn("time_tag", "time", True, "UTC", "measurement epoch, UTC (Arrow timestamp or ISO 8601 string)"),
-    RawColumn("observable", "text", True, "", "time_offset (remote - reference, s) or fractional_frequency (remote - reference, dimensionless)"),
+    RawColumn("observable", "text", True, "", "time_offset (remote - reference, s), fractional_frequency (remote - reference, dimensionless), or two_way_fractional_frequency (the same through a two-way link whose first-order Doppler cancels)"),
     RawColumn("value", "number", True, "s or 1", "observed value"),
     RawColumn("uncertainty", "number", True, "s or 1", "one-sigma uncertainty of value (>= 0)"),
     RawColumn("averaging_s", "number", False, "s", "averaging interval of fractional_frequency records (> 0)"),
@@ -60,7 +60,7 @@ TRACKING_OBSERVABLES = {
 }
 #: observable types whose receiving end is a spacecraft, not a ground station
 LINK_OBSERVABLES = ("link_range_one_way", "link_range_two_way")
-CLOCK_OBSERVABLES = ("time_offset", "fractional_frequency")
+CLOCK_OBSERVABLES = ("time_offset", "fractional_frequency", "two_way_fractional_frequency")
 
 # the columns ingest adds to every record
 INGEST_COLUMNS = (
@@ -87,7 +87,7 @@ INGEST_REASONS = {
     "unit_invalid": "unit does not fit the observable",
     "value_not_finite": "value is null, NaN or infinite",
     "uncertainty_invalid": "uncertainty is null, NaN, infinite or negative",
-    "averaging_invalid": "fractional-frequency record without a positive finite averaging interval",
+    "averaging_invalid": "fractional-frequency (or two-way) record without a positive finite averaging interval",
 }
 
 

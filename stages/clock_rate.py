@@ -45,7 +45,7 @@ from stages.base import Column, Param, Reference, Stage, StageContext, StageResu
 from stages.physics import clock_rates as cr
 from stages.physics import constants as K
 from stages.physics.clock_catalogue import ClockCatalogueError, load_clock_catalogue
-from stages.physics.station_catalogue import CatalogueError, load_catalogue
+from stages.physics.station_catalogue import CatalogueError, load_catalogue, station_itrs_m
 
 C2 = K.C_M_PER_S ** 2
 
@@ -130,6 +130,50 @@ def _state_orbit(states, target, tt_mjd, tt_sod, dt, half, max_gap_s, ep_mjd, ep
     return terms, offsets, secular, cr.eccentricity_term_s(pos, vel), bad
 
 
+def _two_way_prediction(clocks, stations, j_sat, j_gnd, dt, ep_mjd, ep_sod, params):
+    """Predicted relativistic shift of two-way frequency comparisons of orbiting clock ``j_sat`` with
+    ground clock ``j_gnd`` received at ``dt`` (TT seconds since the reference epoch): eqs. (1)-(2) of
+    ``stages.physics.frequency_links``, both clocks' rates against TT."""
+    from stages.physics import time_scales as tsp
+    from stages.physics.barycentric import tai_to_utc
+    from stages.physics.earth_rotation import itrs_to_gcrs
+    from stages.physics.frequency_links import two_way_shift
+    from stages.physics.leap_seconds import load_leap_table
+
+    leap = load_leap_table()
+    si = {c: i for i, c in enumerate(stations.codes)}[clocks.station[j_gnd]]
+    _, lat, _ = erfa.gc2gd(1, stations.position_m[si])
+    ground_rate = normal_gravity_m_per_s2(lat) * clocks.height_above_geoid_m[j_gnd] / C2
+
+    def tt_of(t):
+        return tsp.add_seconds(np.full(t.shape, ep_mjd, dtype=np.int64), np.full(t.shape, ep_sod), t)
+
+    def ground(t):
+        tt_m, tt_s = tt_of(t)
+        utc_m, utc_s = tai_to_utc(*tsp.add_seconds(tt_m, tt_s, -32.184), leap)
+        x = station_itrs_m(stations, np.full(t.shape, si), utc_m.astype(float))
+        st = itrs_to_gcrs(x, utc_m, utc_s, tt_m, tt_s)
+        return st.pos_m, st.vel_m_per_s, np.full(t.shape, ground_rate)
+
+    if clocks.states_file[j_sat]:
+        states = _cached(_states_cached, clocks.states_file[j_sat])
+
+        def satellite(t):
+            tt_m, tt_s = tt_of(t)
+            tdb_m, tdb_s = tsp.add_seconds(tt_m, tt_s, tsp.tdb_minus_tt_s(tt_m, tt_s))
+            pos, vel, _ = states.posvel_centre_m(clocks.states_target[j_sat], tdb_m, tdb_s, params["max_gap_s"])
+            return pos, vel, cr.clock_rate_terms(pos, vel)["total"]
+    else:
+        el = clocks.elements[j_sat]
+        t_el = (clocks.epoch_tt_mjd[j_sat] - ep_mjd) * 86400.0 + (clocks.epoch_tt_sod_s[j_sat] - ep_sod)
+
+        def satellite(t):
+            pos, vel, _ = cr.kepler_state(*el, t_el, t)
+            return pos, vel, cr.clock_rate_terms(pos, vel)["total"]
+
+    return two_way_shift(dt, satellite, ground)
+
+
 def _parse_epoch(text: str):
     ep = datetime.datetime.fromisoformat(text)
     mjd = ep.date().toordinal() - 678576
@@ -188,6 +232,7 @@ class ClockRate(Stage):
     quarantine_reasons = {
         "clock_unknown": "the remote or reference clock is not in the clock catalogue",
         "clock_station_unknown": "a ground clock's station is not in the station catalogue (or has no position)",
+        "two_way_not_ground_satellite": "a two-way frequency record that is not between an orbiting and a ground clock",
         "orbit_outside_coverage": "the record's epoch (or its averaging interval, or the reference epoch) is outside "
                                   "the clock's state table, or in a gap wider than max_gap_s",
     }
@@ -258,8 +303,8 @@ class ClockRate(Stage):
         tt_sod_all = table["tt_sod_s"].to_numpy()
         outside = np.zeros(n, dtype=bool)
         dt = (table["tt_mjd"].to_numpy().astype(np.int64) - ep_mjd) * 86400.0 + (table["tt_sod_s"].to_numpy() - ep_sod)
-        is_freq = np.asarray(pc.fill_null(pc.equal(table["observable"], "fractional_frequency"), False)
-                             .to_numpy(zero_copy_only=False), dtype=bool)
+        is_freq = np.asarray(pc.fill_null(pc.is_in(table["observable"], value_set=pa.array(
+            ["fractional_frequency", "two_way_fractional_frequency"])), False).to_numpy(zero_copy_only=False), dtype=bool)
         tau = table["averaging_s"].to_numpy(zero_copy_only=False).astype(float) if "averaging_s" in table.column_names \
             else np.full(n, np.nan)
         half = np.where(is_freq & np.isfinite(tau), tau / 2.0, 0.0)
@@ -332,6 +377,24 @@ class ClockRate(Stage):
         with np.errstate(invalid="ignore", divide="ignore"):
             mean_rate = ((offsets["remote"][1] - offsets["remote"][-1]) - (offsets["reference"][1] - offsets["reference"][-1])) / (2 * half)
         predicted = np.where(is_freq, mean_rate, offsets["remote"][0] - offsets["reference"][0])
+        # two-way frequency links: the first-order Doppler cancels; what is left is predicted from the
+        # signals' geometry (eqs. 1-2 of stages.physics.frequency_links), averaged over the interval
+        # (Simpson's rule on t - tau/2, t, t + tau/2)
+        two_way = np.asarray(pc.fill_null(pc.equal(table["observable"], "two_way_fractional_frequency"), False)
+                             .to_numpy(zero_copy_only=False), dtype=bool) & ~unknown & ~bad_station
+        pair_ok = two_way & (clocks.orbiting[r] != clocks.orbiting[f])
+        if pair_ok.any():
+            stations_tab = _cached(_stations, context.path(params["stations"]))
+            sat_remote = clocks.orbiting[r]
+            for js, jg in {(int(a), int(b)) for a, b in zip(np.where(sat_remote, r, f)[pair_ok],
+                                                            np.where(sat_remote, f, r)[pair_ok])}:
+                # a loop over (satellite, ground) clock pairs, not records
+                m = np.flatnonzero(pair_ok & (np.where(sat_remote, r, f) == js) & (np.where(sat_remote, f, r) == jg))
+                ys = [_two_way_prediction(clocks, stations_tab, js, jg, dt[m] + k * half[m], ep_mjd, ep_sod, params)
+                      for k in (-1, 0, 1)]
+                y = (ys[0] + 4.0 * ys[1] + ys[2]) / 6.0
+                predicted[m] = np.where(sat_remote[m], y, -y)  # a difference of two clocks: TT or TCG alike
+        predicted[two_way & ~pair_ok] = np.nan
         outside &= ~(unknown | bad_station)
         bad = unknown | bad_station | outside
         predicted[bad] = np.nan
@@ -342,4 +405,5 @@ class ClockRate(Stage):
             value = value + np.where(~is_freq & np.isfinite(sag), sag, 0.0)
         out["value_corrected"] = value - predicted
         return StageResult(columns=out, quarantine={"clock_unknown": unknown, "clock_station_unknown": bad_station,
+                                                    "two_way_not_ground_satellite": two_way & ~pair_ok,
                                                     "orbit_outside_coverage": outside})

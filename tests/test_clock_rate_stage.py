@@ -161,3 +161,36 @@ def test_state_table_orbit_against_independent_integration(tmp_path):
     # outside the table: quarantined, never extrapolated
     res = ClockRate().apply(_table("WREN-CS", "GEOID", "time_offset", [200000.0]), PARAMS, ctx)
     assert list(res.quarantine["orbit_outside_coverage"]) == [True]
+
+
+def test_two_way_frequency_records_follow_the_published_closed_form(ctx):
+    """two_way_fractional_frequency records: prediction vs Vessot et al. 1980 eq. 1 (from memory, with
+    r_SE = x_E - x_S; see tests/test_frequency_links.py) evaluated here with the station's GCRS state
+    and its acceleration from a central difference of the velocity.  Rates against TT for both clocks,
+    potentials monopole + J2 as in clock_rate_terms, ground clock on the geoid (its rate is then 0)."""
+    from stages.physics import clock_rates as cr
+    from stages.physics.earth_rotation import itrs_to_gcrs
+    from stages.physics.frequency_links import vessot_shift
+
+    sod = np.array([1000.0, 20000.0, 50000.0])
+    table = _table("CIRC", "GEOID", "two_way_fractional_frequency", sod, tau=10.0)
+    y = np.asarray(ClockRate().apply(table, PARAMS, ctx).columns["relativistic_prediction"])
+    flipped = ClockRate().apply(_table("GEOID", "CIRC", "two_way_fractional_frequency", sod, tau=10.0), PARAMS, ctx)
+    assert np.allclose(np.asarray(flipped.columns["relativistic_prediction"]), -y, rtol=0, atol=1e-20)
+
+    def station(t_tt):
+        utc = t_tt - 69.184   # TT - UTC in 2020 (TAI - UTC = 37 s, IERS Bulletin C)
+        x = np.tile([6378137.0, 0.0, 0.0], (t_tt.size, 1))
+        st = itrs_to_gcrs(x, np.full(t_tt.size, 58849), utc, np.full(t_tt.size, 58849), t_tt)
+        return st.pos_m, st.vel_m_per_s
+
+    xe, ve = station(sod)
+    ae = (station(sod + 0.5)[1] - station(sod - 0.5)[1]) / 1.0
+    xs, vs, _ = cr.kepler_state(26561750.0, 0.0, np.radians(55.0), 0.0, 0.0, 0.0, 0.0, sod)
+    c2 = 299792458.0**2
+    # phi = -U with U the potential the clocks' rates use (monopole + J2) ...
+    phi_s = -cr.earth_potential_m2_per_s2(xs)
+    # ... and the ground clock on the geoid: rate 0 = L_G - (v_E^2/2 + U_E)/c^2, so phi_E = v_E^2/2 - L_G c^2
+    phi_e = 0.5 * np.einsum("ij,ij->i", ve, ve) - 6.969290134e-10 * c2
+    expected = vessot_shift(xs, vs, phi_s, xe, ve, phi_e, ae)
+    assert np.abs(y - expected).max() < 2e-14, np.abs(y - expected).max()
