@@ -127,7 +127,7 @@ def _state_orbit(states, target, tt_mjd, tt_sod, dt, half, max_gap_s, ep_mjd, ep
     secular = float(np.polyfit(t_nodes - t_nodes.mean(), slope_of, 1)[0])
     offsets = {s: _hermite_cumulative(t_nodes, cum, rate_nodes, dt + s * half, max_gap_s) - zero for s in (-1, 0, 1)}
     bad = (status != 0) | ~np.isfinite(offsets[-1]) | ~np.isfinite(offsets[1]) | ~np.isfinite(zero)
-    return terms, offsets, secular, cr.eccentricity_term_s(pos, vel), bad
+    return terms, offsets, secular, cr.eccentricity_term_s(pos, vel), bad, pos
 
 
 def _two_way_prediction(clocks, stations, j_sat, j_gnd, dt, ep_mjd, ep_sod, params):
@@ -174,6 +174,13 @@ def _two_way_prediction(clocks, stations, j_sat, j_gnd, dt, ep_mjd, ep_sod, para
     return two_way_shift(dt, satellite, ground)
 
 
+def _tidal_rate(pos_gcrs_m, tt_mjd, tt_sod_s) -> np.ndarray:
+    """-U_tidal/c^2 of the Sun and Moon at the clock (quadrupole, IERS TN36 ch. 10; positions from DE421,
+    TT standing in for TDB: < 5e-9 relative)."""
+    bodies = cr.sun_moon_geocentric_m(tt_mjd, tt_sod_s)
+    return -cr.tidal_potential_m2_per_s2(pos_gcrs_m, bodies) / C2
+
+
 def _parse_epoch(text: str):
     ep = datetime.datetime.fromisoformat(text)
     mjd = ep.date().toordinal() - 678576
@@ -203,6 +210,8 @@ class ClockRate(Stage):
         _f64("remote_rate_gravitational", "1", "remote clock: L_G - GM/(r c^2), monopole (0 for a ground clock: see total)"),
         _f64("remote_rate_j2", "1", "remote clock: J2 part of the potential term"),
         _f64("remote_rate_velocity", "1", "remote clock: -v^2/(2 c^2), GCRS velocity"),
+        _f64("remote_rate_tidal", "1", "remote clock: -U_tidal/c^2 of the Sun and Moon (parameter tidal; NaN when off; "
+                                       "reported, not folded into the totals: <= 1e-15 near the Earth)"),
         _f64("remote_rate_total", "1", "remote clock: d tau/dt - 1 against the coordinate time (TT or TCG)"),
         _f64("reference_rate_total", "1", "reference clock: d tau/dt - 1 against the coordinate time"),
         _f64("remote_offset_secular_s", "s", "remote clock: constant-rate part of tau - t accumulated since the reference epoch"),
@@ -219,6 +228,7 @@ class ClockRate(Stage):
         Param("reference_epoch_tt", "str", "2000-01-01T12:00:00",
               "epoch from which accumulated times are counted (ISO date-time, TT)"),
         Param("coordinate_time", "str", "TT", "coordinate time the clocks are referred to", choices=("TT", "TCG")),
+        Param("tidal", "bool", False, "report the Sun's and Moon's tidal term of orbiting remote clocks (DE421)"),
         Param("max_gap_s", "float", 3600.0, "widest gap between tabulated states the interpolation may bridge",
               unit="s", minimum=1.0, maximum=86400.0),
     )
@@ -325,9 +335,11 @@ class ClockRate(Stage):
             for j in np.unique(idx_all[orb_states]):  # a loop over state-table clocks, not records
                 o = np.flatnonzero(orb_states & (idx_all == j))
                 states = _cached(_states_cached, clocks.states_file[j])
-                terms, offs, secular, ecc, bad_o = _state_orbit(
+                terms, offs, secular, ecc, bad_o, pos_o = _state_orbit(
                     states, clocks.states_target[j], tt_mjd_all[o], tt_sod_all[o], dt[o], half[o],
                     params["max_gap_s"], ep_mjd, ep_sod)
+                if role == "remote" and params["tidal"]:
+                    out["remote_rate_tidal"][o] = _tidal_rate(pos_o, tt_mjd_all[o], tt_sod_all[o])
                 rate[o] = terms["total"] + shift
                 for s_ in off:
                     off[s_][o] = offs[s_] + shift * (dt[o] + s_ * half[o])
@@ -358,6 +370,8 @@ class ClockRate(Stage):
                     out["remote_rate_gravitational"][o] = terms["gravitational"] + shift
                     out["remote_rate_j2"][o] = terms["j2"]
                     out["remote_rate_velocity"][o] = terms["velocity"]
+                    if params["tidal"]:
+                        out["remote_rate_tidal"][o] = _tidal_rate(pos, tt_mjd_all[o], tt_sod_all[o])
                     out["remote_offset_secular_s"][o] = secular * dt[o]
                     out["remote_offset_periodic_s"][o] = off[0][o] - secular * dt[o]
                     out["eccentricity_term_s"][o] = cr.eccentricity_term_s(pos, vel)

@@ -158,6 +158,8 @@ def test_state_table_orbit_against_independent_integration(tmp_path):
     periodic = np.asarray(res.columns["remote_offset_periodic_s"])
     ecc = np.asarray(res.columns["eccentricity_term_s"])
     assert np.abs(periodic - (ecc - ecc[0])).max() < 1e-10
+    with_tides = ClockRate().apply(_table("WREN-CS", "GEOID", "time_offset", sod), {**PARAMS, "tidal": True}, ctx)
+    assert np.isfinite(np.asarray(with_tides.columns["remote_rate_tidal"])).all()
     # outside the table: quarantined, never extrapolated
     res = ClockRate().apply(_table("WREN-CS", "GEOID", "time_offset", [200000.0]), PARAMS, ctx)
     assert list(res.quarantine["orbit_outside_coverage"]) == [True]
@@ -194,3 +196,14 @@ def test_two_way_frequency_records_follow_the_published_closed_form(ctx):
     phi_e = 0.5 * np.einsum("ij,ij->i", ve, ve) - 6.969290134e-10 * c2
     expected = vessot_shift(xs, vs, phi_s, xe, ve, phi_e, ae)
     assert np.abs(y - expected).max() < 2e-14, np.abs(y - expected).max()
+
+
+def test_tidal_term_size(ctx):
+    """The Sun's and Moon's tidal term at GNSS radius: at most 8.5e-16 (Moon) + 3.3e-16 (Sun) in rate
+    (recomputed in stages/physics/clock_rates.py from DE421 GM values; IERS TN36 ch. 10)."""
+    sod = np.linspace(0, 86400, 49)
+    res = ClockRate().apply(_table("CIRC", "GEOID", "time_offset", sod), {**PARAMS, "tidal": True}, ctx).columns
+    tidal = np.asarray(res["remote_rate_tidal"])
+    assert np.isfinite(tidal).all() and 1e-17 < np.abs(tidal).max() < 8.5e-16 + 3.3e-16
+    off = ClockRate().apply(_table("CIRC", "GEOID", "time_offset", sod), PARAMS, ctx).columns
+    assert np.isnan(np.asarray(off["remote_rate_tidal"])).all()
