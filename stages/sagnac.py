@@ -125,13 +125,20 @@ class Sagnac(Stage):
             el = clocks.elements[sat[idx]]
             ep_mjd, ep_sod = clocks.epoch_tt_mjd[sat[idx]], clocks.epoch_tt_sod_s[sat[idx]]
             t_since = (tt_mjd - ep_mjd) * 86400.0 + (tt_s - ep_sod)   # TT seconds since the elements' epoch
+            # the ITRS -> GCRS matrix at the tag, once; at the emission instant (70-90 ms earlier for a
+            # downlink) the Earth has turned by omega * delay about the pole: M(t - d) = M(t) R3(omega d)
+            # up to polar motion x precession-nutation over that interval (< 1e-11 rad)
+            m_t = np.stack([itrs_to_gcrs(np.tile(e, (idx.size, 1)), utc_mjd, utc_s, tt_mjd, tt_s).pos_m
+                            for e in np.eye(3)], axis=2)
             delay = np.zeros(idx.size)
             for _ in range(2):  # light time: 70-90 ms, twice is exact to well under 1 ns
                 shift = -delay if params["direction"] == "downlink" else np.zeros(idx.size)
                 pos, _, _ = cr.kepler_state(*el.T, 0.0, t_since + shift)
-                sat_itrs = gcrs_to_itrs_m(pos, utc_mjd, utc_s + shift, tt_mjd, tt_s + shift)
-                # (uplink: the satellite at reception, the tag itself; the station is Earth-fixed, so its
-                # ITRS position at emission is the same)
+                body = np.einsum("nji,nj->ni", m_t, pos)            # M(t)^T x: ITRS axes of the tag
+                ang = cr.EARTH_ROTATION_RATE_RAD_PER_S * shift     # negative: earlier
+                ca, sa = np.cos(ang), np.sin(ang)
+                # the satellite in the ITRS axes of the emission instant: R3(omega * shift) applied
+                sat_itrs = np.stack([ca * body[:, 0] + sa * body[:, 1], -sa * body[:, 0] + ca * body[:, 1], body[:, 2]], 1)
                 dist = np.linalg.norm(sat_itrs - ground, axis=1)
                 delay = dist / K.C_M_PER_S
             if params["direction"] == "downlink":
