@@ -118,8 +118,14 @@ def _state_orbit(states, target, tt_mjd, tt_sod, dt, half, max_gap_s, ep_mjd, ep
     n_mjd = np.asarray(n_mjd, dtype=np.int64)
     tt_nm, tt_ns = tsp.add_seconds(n_mjd, n_sod, -tsp.tdb_minus_tt_s(n_mjd, n_sod))
     t_nodes = (tt_nm - ep_mjd) * 86400.0 + (tt_ns - ep_sod)
-    rate_nodes = cr.clock_rate_terms(n_pos, n_vel)["total"]
+    node_terms = cr.clock_rate_terms(n_pos, n_vel)
+    rate_nodes = node_terms["total"]
     cum = cr.integrate_rate_s(t_nodes, rate_nodes)
+    per_term = {}
+    for name in ("gravitational", "j2", "velocity"):  # a loop over terms, not records
+        c_t = cr.integrate_rate_s(t_nodes, node_terms[name])
+        z_t = _hermite_cumulative(t_nodes, c_t, node_terms[name], np.zeros(1), max_gap_s)[0]
+        per_term[name] = _hermite_cumulative(t_nodes, c_t, node_terms[name], dt, max_gap_s) - z_t
     zero = _hermite_cumulative(t_nodes, cum, rate_nodes, np.zeros(1), max_gap_s)[0]  # at the reference epoch
     # constant-rate part: the slope of the accumulated time once the eccentricity term -2 r.v/c^2 is
     # taken out (for a Kepler orbit what is left is exactly linear; Ashby 2003 sec. 5), least squares
@@ -127,7 +133,7 @@ def _state_orbit(states, target, tt_mjd, tt_sod, dt, half, max_gap_s, ep_mjd, ep
     secular = float(np.polyfit(t_nodes - t_nodes.mean(), slope_of, 1)[0])
     offsets = {s: _hermite_cumulative(t_nodes, cum, rate_nodes, dt + s * half, max_gap_s) - zero for s in (-1, 0, 1)}
     bad = (status != 0) | ~np.isfinite(offsets[-1]) | ~np.isfinite(offsets[1]) | ~np.isfinite(zero)
-    return terms, offsets, secular, cr.eccentricity_term_s(pos, vel), bad, pos
+    return terms, offsets, secular, cr.eccentricity_term_s(pos, vel), bad, pos, per_term
 
 
 def _two_way_prediction(clocks, stations, j_sat, j_gnd, dt, ep_mjd, ep_sod, params):
@@ -216,6 +222,9 @@ class ClockRate(Stage):
         _f64("reference_rate_total", "1", "reference clock: d tau/dt - 1 against the coordinate time"),
         _f64("remote_offset_secular_s", "s", "remote clock: constant-rate part of tau - t accumulated since the reference epoch"),
         _f64("remote_offset_periodic_s", "s", "remote clock: eccentricity term -2(r.v - r0.v0)/c^2 since the reference epoch"),
+        _f64("remote_offset_gravitational_s", "s", "remote clock: time accumulated by the monopole term (with L_G) since the reference epoch"),
+        _f64("remote_offset_j2_s", "s", "remote clock: time accumulated by the J2 term (orbit mean for two-body elements)"),
+        _f64("remote_offset_velocity_s", "s", "remote clock: time accumulated by the velocity term since the reference epoch"),
         _f64("eccentricity_term_s", "s", "remote clock: -2 r.v/c^2 at the epoch (IS-GPS-200 F e sqrt(A) sin E)"),
         _f64("reference_offset_s", "s", "reference clock: tau - t accumulated since the reference epoch"),
         _f64("relativistic_prediction", "s|1", "predicted relativistic part of the observable (remote - reference)"),
@@ -335,7 +344,7 @@ class ClockRate(Stage):
             for j in np.unique(idx_all[orb_states]):  # a loop over state-table clocks, not records
                 o = np.flatnonzero(orb_states & (idx_all == j))
                 states = _cached(_states_cached, clocks.states_file[j])
-                terms, offs, secular, ecc, bad_o, pos_o = _state_orbit(
+                terms, offs, secular, ecc, bad_o, pos_o, per_term = _state_orbit(
                     states, clocks.states_target[j], tt_mjd_all[o], tt_sod_all[o], dt[o], half[o],
                     params["max_gap_s"], ep_mjd, ep_sod)
                 if role == "remote" and params["tidal"]:
@@ -351,6 +360,9 @@ class ClockRate(Stage):
                     out["remote_offset_secular_s"][o] = (secular + shift) * dt[o]
                     out["remote_offset_periodic_s"][o] = off[0][o] - (secular + shift) * dt[o]
                     out["eccentricity_term_s"][o] = ecc
+                    out["remote_offset_gravitational_s"][o] = per_term["gravitational"] + shift * dt[o]
+                    out["remote_offset_j2_s"][o] = per_term["j2"]
+                    out["remote_offset_velocity_s"][o] = per_term["velocity"]
             if orb_el.any():
                 o = np.flatnonzero(orb_el)
                 el = clocks.elements[idx_all[o]]
@@ -375,11 +387,22 @@ class ClockRate(Stage):
                     out["remote_offset_secular_s"][o] = secular * dt[o]
                     out["remote_offset_periodic_s"][o] = off[0][o] - secular * dt[o]
                     out["eccentricity_term_s"][o] = cr.eccentricity_term_s(pos, vel)
+                    # per term, from  integral GM/r dt = (GM/a) dt + sqrt(GM a) e d(sin E)  (vis-viva and
+                    # Kepler's equation; see kepler_secular_rate): monopole and velocity terms
+                    _, _, e_now = cr.kepler_state(a, e, inc, raan, argp, m0, t_el, dt[o])
+                    gm = K.GM_EARTH_TT_M3_PER_S2
+                    int_u = gm / a * dt[o] + np.sqrt(gm * a) * e * (np.sin(e_now) - np.sin(e_ref))
+                    out["remote_offset_gravitational_s"][o] = (K.L_G + shift) * dt[o] - int_u / C2
+                    out["remote_offset_velocity_s"][o] = -(int_u - gm / (2.0 * a) * dt[o]) / C2
+                    out["remote_offset_j2_s"][o] = mean_j2[idx_all[o]] * dt[o]
             if role == "remote":
                 out["remote_rate_total"] = rate
                 g = ~orb
                 out["remote_offset_secular_s"][g] = off[0][g]
                 out["remote_offset_periodic_s"][g] = 0.0
+                out["remote_offset_gravitational_s"][g] = off[0][g]   # a ground clock: all in C/c^2
+                out["remote_offset_j2_s"][g] = 0.0
+                out["remote_offset_velocity_s"][g] = 0.0
                 out["remote_rate_gravitational"][g] = rate[g]
                 out["remote_rate_j2"][g] = 0.0
                 out["remote_rate_velocity"][g] = 0.0

@@ -207,3 +207,25 @@ def test_tidal_term_size(ctx):
     assert np.isfinite(tidal).all() and 1e-17 < np.abs(tidal).max() < 8.5e-16 + 3.3e-16
     off = ClockRate().apply(_table("CIRC", "GEOID", "time_offset", sod), PARAMS, ctx).columns
     assert np.isnan(np.asarray(off["remote_rate_tidal"])).all()
+
+
+def test_accumulated_time_per_term_adds_up_and_matches_the_published_split(ctx, tmp_path):
+    """Per-term accumulated times: for the circular orbit at 26 561.75 km, +45.79 us/day gravitational
+    and -7.21 us/day velocity (references sheet, recomputed from IERS 2010 constants); the terms add up
+    to the total (secular + periodic) for element and state-table orbits alike."""
+    res = ClockRate().apply(_table("CIRC", "GEOID", "time_offset", [86400.0]), PARAMS, ctx).columns
+    grav = np.asarray(res["remote_offset_gravitational_s"])[0]
+    vel = np.asarray(res["remote_offset_velocity_s"])[0]
+    assert grav == pytest.approx(45.79e-6, rel=3e-4, abs=0) and vel == pytest.approx(-7.21e-6, rel=1e-3, abs=0)
+    a = 5153.8**2
+    _write_states(tmp_path / "wren.parquet", a, 0.01)
+    (tmp_path / "clocks.toml").write_text(CATALOGUE.format(a_ecc=a) + '[clocks.WREN-CS]\nkind = "orbiting"\n'
+                                          'states = "wren.parquet"\nstates_target = "WREN"\n')
+    (tmp_path / "stations.toml").write_text(STATIONS)
+    ctx2 = StageContext("clock", {}, base_dir=str(tmp_path))
+    for clock, tol in (("ECC", 1e-15), ("WREN-CS", 1e-13)):
+        c = ClockRate().apply(_table(clock, "GEOID", "time_offset", [3000.0, 60000.0, 140000.0]), PARAMS, ctx2).columns
+        parts = sum(np.asarray(c[k]) for k in ("remote_offset_gravitational_s", "remote_offset_j2_s", "remote_offset_velocity_s"))
+        total = np.asarray(c["remote_offset_secular_s"]) + np.asarray(c["remote_offset_periodic_s"])
+        # element orbits keep only the orbit-mean J2 in both; state tables integrate everything
+        assert np.abs(parts - total).max() < tol, (clock, np.abs(parts - total).max())
