@@ -311,8 +311,8 @@ class ClockRate(Stage):
         tcg = params["coordinate_time"] == "TCG"
         shift = -K.L_G if tcg else 0.0  # d tau/dTCG - 1 = (d tau/dTT - 1) - L_G (first order)
 
-        remote = clocks.index(table["remote_clock"].to_numpy(zero_copy_only=False))
-        reference = clocks.index(table["reference_clock"].to_numpy(zero_copy_only=False))
+        remote = clocks.index(table["remote_clock"])
+        reference = clocks.index(table["reference_clock"])
         unknown = (remote < 0) | (reference < 0)
         r, f = np.where(remote < 0, 0, remote), np.where(reference < 0, 0, reference)
         bad_station = ~unknown & (~station_ok[r] | ~station_ok[f])
@@ -368,16 +368,24 @@ class ClockRate(Stage):
                 el = clocks.elements[idx_all[o]]
                 a, e, inc, raan, argp, m0 = el.T
                 t_el = (clocks.epoch_tt_mjd[idx_all[o]] - ep_mjd) * 86400.0 + (clocks.epoch_tt_sod_s[idx_all[o]] - ep_sod)
-                pos, vel, _ = cr.kepler_state(a, e, inc, raan, argp, m0, t_el, dt[o])
+                pos, vel, e_at = cr.kepler_state(a, e, inc, raan, argp, m0, t_el, dt[o])
                 terms = cr.clock_rate_terms(pos, vel)
                 rate[o] = terms["total"] + shift
                 secular = cr.kepler_secular_rate(a) + mean_j2[idx_all[o]] + shift
-                _, _, e_ref = cr.kepler_state(a, e, inc, raan, argp, m0, t_el, np.zeros(o.size))
-                for s in off:
-                    ts_ = dt[o] + s * half[o]
-                    _, _, e_now = cr.kepler_state(a, e, inc, raan, argp, m0, t_el, ts_)
-                    periodic = -2.0 * np.sqrt(K.GM_EARTH_TT_M3_PER_S2 * a) * e * (np.sin(e_now) - np.sin(e_ref)) / C2
-                    off[s][o] = secular * ts_ + periodic
+                gm = K.GM_EARTH_TT_M3_PER_S2
+                mean_motion = np.sqrt(gm / a**3)
+                # eccentric anomalies at the reference epoch (one per clock) and at t -+ tau/2 (frequency
+                # records only): Kepler's equation alone, no state needed
+                e_ref = cr.solve_kepler_rad(m0 + mean_motion * (0.0 - t_el), e)
+                amp = -2.0 * np.sqrt(gm * a) * e / C2
+                off[0][o] = secular * dt[o] + amp * (np.sin(e_at) - np.sin(e_ref))
+                f_o = half[o] > 0
+                for s in (-1, 1):
+                    off[s][o] = off[0][o]
+                    if f_o.any():
+                        ts_ = dt[o][f_o] + s * half[o][f_o]
+                        e_s = cr.solve_kepler_rad(m0[f_o] + mean_motion[f_o] * (ts_ - t_el[f_o]), e[f_o])
+                        off[s][o[f_o]] = secular[f_o] * ts_ + amp[f_o] * (np.sin(e_s) - np.sin(e_ref[f_o]))
                 if role == "remote":
                     out["remote_rate_gravitational"][o] = terms["gravitational"] + shift
                     out["remote_rate_j2"][o] = terms["j2"]
@@ -389,9 +397,7 @@ class ClockRate(Stage):
                     out["eccentricity_term_s"][o] = cr.eccentricity_term_s(pos, vel)
                     # per term, from  integral GM/r dt = (GM/a) dt + sqrt(GM a) e d(sin E)  (vis-viva and
                     # Kepler's equation; see kepler_secular_rate): monopole and velocity terms
-                    _, _, e_now = cr.kepler_state(a, e, inc, raan, argp, m0, t_el, dt[o])
-                    gm = K.GM_EARTH_TT_M3_PER_S2
-                    int_u = gm / a * dt[o] + np.sqrt(gm * a) * e * (np.sin(e_now) - np.sin(e_ref))
+                    int_u = gm / a * dt[o] + np.sqrt(gm * a) * e * (np.sin(e_at) - np.sin(e_ref))
                     out["remote_offset_gravitational_s"][o] = (K.L_G + shift) * dt[o] - int_u / C2
                     out["remote_offset_velocity_s"][o] = -(int_u - gm / (2.0 * a) * dt[o]) / C2
                     out["remote_offset_j2_s"][o] = mean_j2[idx_all[o]] * dt[o]

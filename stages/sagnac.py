@@ -101,8 +101,8 @@ class Sagnac(Stage):
         n = table.num_rows
         clocks = _cached(_clocks, context.path(params["clocks"]))
         stations = _cached(_stations, context.path(params["stations"]))
-        remote = clocks.index(table["remote_clock"].to_numpy(zero_copy_only=False))
-        reference = clocks.index(table["reference_clock"].to_numpy(zero_copy_only=False))
+        remote = clocks.index(table["remote_clock"])
+        reference = clocks.index(table["reference_clock"])
         known = (remote >= 0) & (reference >= 0)
         r, f = np.where(known, remote, 0), np.where(known, reference, 0)
         # the orbiting end and the ground end of each comparison

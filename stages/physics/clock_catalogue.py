@@ -69,11 +69,18 @@ class ClockCatalogue:
     identity: dict
 
     def index(self, names) -> np.ndarray:
-        """Catalogue index of each name, -1 where unknown (names: a sequence or array of str)."""
-        lookup = {c: i for i, c in enumerate(self.codes)}
-        names = np.asarray(names, dtype=object)
-        uniq, inv = np.unique(names.astype(str), return_inverse=True)
-        return np.array([lookup.get(u, -1) for u in uniq], dtype=np.int64)[inv]  # loop over distinct names
+        """Catalogue index of each name, -1 where unknown or null (an Arrow column, or a sequence of str)."""
+        import pyarrow as pa
+        import pyarrow.compute as pc
+
+        if isinstance(names, pa.ChunkedArray):
+            names = names.combine_chunks()
+        if not isinstance(names, pa.Array):
+            names = pa.array(list(names), pa.string())
+        if pa.types.is_dictionary(names.type):
+            names = names.dictionary_decode()
+        idx = pc.index_in(names, value_set=pa.array(list(self.codes), pa.string()))
+        return np.asarray(pc.fill_null(idx, -1).to_numpy(zero_copy_only=False), dtype=np.int64)
 
 
 def _number(path, key, value, lo=None, hi=None):
