@@ -29,11 +29,22 @@ def conjunction(tmp_path_factory):
     return base, pq.read_table(base / "products" / "conjunction-tracking.parquet")
 
 
+def _same_states(a: pa.Table, b: pa.Table) -> None:
+    """Same rows and labels; positions to 1 um and velocities to 1e-9 m/s (a new libm may move an ulp)."""
+    assert a.schema.names == b.schema.names and a.num_rows == b.num_rows
+    for name in a.schema.names:
+        x, y = a[name].to_numpy(zero_copy_only=False), b[name].to_numpy(zero_copy_only=False)
+        if x.dtype.kind == "f":
+            assert np.allclose(x, y, rtol=0, atol=1e-6 if name.endswith("_m") else 1e-9), name
+        else:
+            assert (x == y).all(), name
+
+
 def test_bundled_states_match_the_generator():
     from pipelines.demo import conjunction_states
 
     bundled = pq.read_table(REPO / "sample_configs" / "conjunction-states.parquet")
-    assert bundled.equals(conjunction_states())
+    _same_states(bundled, conjunction_states())
 
 
 def test_station_gcrs_against_astropy(conjunction):
