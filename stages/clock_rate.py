@@ -32,8 +32,6 @@ undulations beyond the catalogue height.
 from __future__ import annotations
 
 import datetime
-import functools
-import os
 from typing import Any, Mapping
 
 import erfa
@@ -45,24 +43,11 @@ from stages.base import Column, Param, Reference, Stage, StageContext, StageResu
 from stages.physics import clock_rates as cr
 from stages.physics import constants as K
 from stages.physics.clock_catalogue import ClockCatalogueError, load_clock_catalogue
+from stages.physics.file_cache import load_cached
+from stages.physics.spacecraft_ephemeris import load_state_table
 from stages.physics.station_catalogue import CatalogueError, load_catalogue, station_itrs_m
 
 C2 = K.C_M_PER_S ** 2
-
-
-@functools.lru_cache(maxsize=4)
-def _clocks(path: str, mtime_ns: int, size: int):
-    return load_clock_catalogue(path)
-
-
-@functools.lru_cache(maxsize=4)
-def _stations(path: str, mtime_ns: int, size: int):
-    return load_catalogue(path)
-
-
-def _cached(loader, path):
-    st = os.stat(path)
-    return loader(str(path), st.st_mtime_ns, st.st_size)
 
 
 def normal_gravity_m_per_s2(geodetic_lat_rad) -> np.ndarray:
@@ -78,13 +63,6 @@ def _mean_j2_rate(a_m, e, i_rad, raan_rad, argp_rad, samples: int = 720) -> floa
     n = np.sqrt(K.GM_EARTH_TT_M3_PER_S2 / a_m**3)
     pos, vel, _ = cr.kepler_state(a_m, e, i_rad, raan_rad, argp_rad, 0.0, 0.0, m / n)
     return float(np.mean(cr.clock_rate_terms(pos, vel)["j2"]))
-
-
-@functools.lru_cache(maxsize=8)
-def _states_cached(path: str, mtime_ns: int, size: int):
-    from stages.physics.spacecraft_ephemeris import load_state_table
-
-    return load_state_table(path)
 
 
 def _hermite_cumulative(t_nodes, cum, rate, tq, max_gap_s):
@@ -162,7 +140,7 @@ def _two_way_prediction(clocks, stations, j_sat, j_gnd, dt, ep_mjd, ep_sod, para
         return st.pos_m, st.vel_m_per_s, np.full(t.shape, ground_rate)
 
     if clocks.states_file[j_sat]:
-        states = _cached(_states_cached, clocks.states_file[j_sat])
+        states = load_cached(load_state_table, clocks.states_file[j_sat])
 
         def satellite(t):
             tt_m, tt_s = tt_of(t)
@@ -289,14 +267,14 @@ class ClockRate(Stage):
 
     def apply(self, table: pa.Table, params: Mapping[str, Any], context: StageContext) -> StageResult:
         n = table.num_rows
-        clocks = _cached(_clocks, context.path(params["clocks"]))
+        clocks = load_cached(load_clock_catalogue, context.path(params["clocks"]))
         k = len(clocks.codes)
         # per-clock constants (a loop over catalogue clocks, not records)
         ground_rate = np.full(k, np.nan)
         mean_j2 = np.zeros(k)
         station_ok = np.ones(k, dtype=bool)
         if (~clocks.orbiting).any():
-            stations = _cached(_stations, context.path(params["stations"]))
+            stations = load_cached(load_catalogue, context.path(params["stations"]))
             lookup = {c: i for i, c in enumerate(stations.codes)}
             for j in np.flatnonzero(~clocks.orbiting):
                 si = lookup.get(clocks.station[j], -1)
@@ -343,7 +321,7 @@ class ClockRate(Stage):
             orb_el = orb & ~orb_states
             for j in np.unique(idx_all[orb_states]):  # a loop over state-table clocks, not records
                 o = np.flatnonzero(orb_states & (idx_all == j))
-                states = _cached(_states_cached, clocks.states_file[j])
+                states = load_cached(load_state_table, clocks.states_file[j])
                 terms, offs, secular, ecc, bad_o, pos_o, per_term = _state_orbit(
                     states, clocks.states_target[j], tt_mjd_all[o], tt_sod_all[o], dt[o], half[o],
                     params["max_gap_s"], ep_mjd, ep_sod)
@@ -427,7 +405,7 @@ class ClockRate(Stage):
                              .to_numpy(zero_copy_only=False), dtype=bool) & ~unknown & ~bad_station
         pair_ok = two_way & (clocks.orbiting[r] != clocks.orbiting[f])
         if pair_ok.any():
-            stations_tab = _cached(_stations, context.path(params["stations"]))
+            stations_tab = load_cached(load_catalogue, context.path(params["stations"]))
             sat_remote = clocks.orbiting[r]
             for js, jg in {(int(a), int(b)) for a, b in zip(np.where(sat_remote, r, f)[pair_ok],
                                                             np.where(sat_remote, f, r)[pair_ok])}:

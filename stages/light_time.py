@@ -35,8 +35,6 @@ relation.
 """
 from __future__ import annotations
 
-import functools
-import os
 from typing import Any, Mapping
 
 import numpy as np
@@ -51,6 +49,7 @@ from stages.physics.earth_orientation import load_eop_table
 from stages.physics.ephemeris_grid import load_gridded_ephemeris
 from stages.physics.ephemeris import GM_M3_PER_S2, load_planetary_ephemeris
 from stages.physics.leap_seconds import load_leap_table
+from stages.physics.file_cache import load_cached
 from stages.physics.spacecraft_ephemeris import (STATUS_IN_GAP, STATUS_OUTSIDE_COVERAGE, STATUS_UNKNOWN_TARGET,
                                                  load_state_table, target_posvel_bcrs_m)
 
@@ -61,14 +60,8 @@ _XYZ = ("x", "y", "z")
 LT_OK, LT_NOT_CONVERGED, LT_INVALID = 0, 1, 2
 
 
-@functools.lru_cache(maxsize=4)
-def _states_cached(path: str, mtime_ns: int, size: int):
-    return load_state_table(path)
-
-
 def state_table(path):
-    st = os.stat(path)
-    return _states_cached(str(path), st.st_mtime_ns, st.st_size)
+    return load_cached(load_state_table, path)
 
 
 class _BodyStates:
@@ -211,7 +204,6 @@ class LightTime(Stage):
         }
         in_metres = equal("unit", "m")
         one, two = kinds["one"] | kinds["link_one"], kinds["two"] | kinds["link_two"]
-        link = kinds["link_one"] | kinds["link_two"]
         t3_mjd, t3_sod = table["tdb_mjd"].to_numpy().astype(np.int64), table["tdb_sod_s"].to_numpy()
         d3 = table["tdb_minus_tt_s"].to_numpy()
         rx = np.column_stack([table[f"site_bcrs_{a}_m"].to_numpy() for a in _XYZ]) if n else np.zeros((0, 3))

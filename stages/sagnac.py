@@ -36,7 +36,7 @@ from stages.physics import constants as K
 from stages.physics.clock_catalogue import ClockCatalogueError, load_clock_catalogue
 from stages.physics.earth_rotation import itrs_to_gcrs
 from stages.physics.station_catalogue import CatalogueError, load_catalogue, station_itrs_m
-from stages.clock_rate import _cached, _clocks, _stations  # the catalogue caches of clock_rate
+from stages.physics.file_cache import load_cached
 
 
 def gcrs_to_itrs_m(x_gcrs_m, utc_mjd, utc_sod_s, tt_mjd, tt_sod_s) -> np.ndarray:
@@ -99,8 +99,8 @@ class Sagnac(Stage):
 
     def apply(self, table: pa.Table, params: Mapping[str, Any], context: StageContext) -> StageResult:
         n = table.num_rows
-        clocks = _cached(_clocks, context.path(params["clocks"]))
-        stations = _cached(_stations, context.path(params["stations"]))
+        clocks = load_cached(load_clock_catalogue, context.path(params["clocks"]))
+        stations = load_cached(load_catalogue, context.path(params["stations"]))
         remote = clocks.index(table["remote_clock"])
         reference = clocks.index(table["reference_clock"])
         known = (remote >= 0) & (reference >= 0)

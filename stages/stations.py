@@ -7,8 +7,6 @@ TDB becomes topocentric.
 """
 from __future__ import annotations
 
-import functools
-import os
 from typing import Any, Mapping
 
 import numpy as np
@@ -16,18 +14,13 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 from stages.base import Column, Param, Reference, Stage, StageContext, StageResult
+from stages.physics.file_cache import load_cached
 from stages.physics.station_catalogue import CatalogueError, StationCatalogue, load_catalogue, station_itrs_m
-
-
-@functools.lru_cache(maxsize=8)
-def _catalogue_cached(path: str, mtime_ns: int, size: int):
-    return load_catalogue(path)
 
 
 def catalogue(path) -> StationCatalogue:
     """The catalogue at ``path``, read once per process unless the file changes."""
-    st = os.stat(path)
-    return _catalogue_cached(str(path), st.st_mtime_ns, st.st_size)
+    return load_cached(load_catalogue, path)
 
 _XYZ = ("x", "y", "z")
 

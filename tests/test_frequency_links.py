@@ -5,8 +5,6 @@ r_SE = x_E - x_S.  The remaining difference is O(c^-3): (v/c)^3 ~ 1e-15."""
 from __future__ import annotations
 
 import numpy as np
-import pyarrow as pa
-import pytest
 
 from stages.physics import clock_rates as cr
 from stages.physics.constants import C_M_PER_S, L_G
