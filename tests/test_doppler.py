@@ -18,7 +18,6 @@ differences of the light-time solver, and the differentiated grazing formula.
 
 from __future__ import annotations
 
-from pathlib import Path
 
 import numpy as np
 import pytest
@@ -359,26 +358,7 @@ def test_invalid_record_flagged_not_raised():
 # ---------------------------------------------------------------------------
 # real geometry: DE421 (jplephem directly) at the 2021 Mars superior conjunction
 # ---------------------------------------------------------------------------
-@pytest.fixture(scope="module")
-def de421():
-    jplephem_spk = pytest.importorskip("jplephem.spk")
-    skyfield_data = pytest.importorskip("skyfield_data")
-    path = Path(skyfield_data.__file__).parent / "data" / "de421.bsp"
-    kernel = jplephem_spk.SPK.open(str(path))
-    segments = {"sun": [(0, 10)], "earth": [(0, 3), (3, 399)], "mars": [(0, 4)],
-                "jupiter": [(0, 5)], "saturn": [(0, 6)]}
-
-    def state(name, mjd, sod):
-        jd1 = np.asarray(mjd, dtype=float) + 2400000.5
-        jd2 = np.asarray(sod, dtype=float) / 86400.0
-        p = v = 0.0
-        for seg in segments[name]:
-            pp, vv = kernel[seg].compute_and_differentiate(jd1, jd2)  # km, km/day
-            p, v = p + pp, v + vv
-        return np.atleast_2d(p.T) * 1e3, np.atleast_2d(v.T) * (1e3 / 86400.0)
-
-    yield state
-    kernel.close()
+# the de421 fixture (DE421 read with jplephem directly) is in conftest.py
 
 
 def test_de421_mars_conjunction_two_way(de421):
