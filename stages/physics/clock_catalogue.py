@@ -32,16 +32,12 @@ from __future__ import annotations
 
 import datetime
 import hashlib
-import sys
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
 
-if sys.version_info >= (3, 11):
-    import tomllib
-else:  # pragma: no cover
-    import tomli as tomllib
+from stages.physics.catalogue_file import read_catalogue
 
 FORMAT = "relcorr-clocks/1"
 MJD_OF_ORDINAL_ZERO = -678576
@@ -93,18 +89,7 @@ def _number(path, key, value, lo=None, hi=None):
 
 def load_clock_catalogue(path: str | Path) -> ClockCatalogue:
     path = Path(path)
-    try:
-        raw = path.read_bytes()
-        doc = tomllib.loads(raw.decode("utf-8"))
-    except FileNotFoundError:
-        raise ClockCatalogueError(f"{path}: file not found") from None
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise ClockCatalogueError(f"{path}: TOML syntax error: {exc}") from None
-    if doc.get("format") != FORMAT:
-        raise ClockCatalogueError(f"{path}: format: found {doc.get('format')!r}, expected {FORMAT!r}")
-    clocks = doc.get("clocks")
-    if not isinstance(clocks, dict) or not clocks:
-        raise ClockCatalogueError(f"{path}: clocks: expected a non-empty table of [clocks.NAME] tables")
+    raw, _, clocks = read_catalogue(path, FORMAT, "clocks", "NAME", ClockCatalogueError)
     codes, orbiting, elements, ep_mjd, ep_sod, station, height = [], [], [], [], [], [], []
     states_file, states_target = [], []
     for code in sorted(clocks):  # loop over catalogue entries, not records

@@ -24,17 +24,13 @@ from __future__ import annotations
 
 import datetime
 import hashlib
-import sys
 from dataclasses import dataclass
 from pathlib import Path
 
 import erfa
 import numpy as np
 
-if sys.version_info >= (3, 11):
-    import tomllib
-else:  # pragma: no cover
-    import tomli as tomllib
+from stages.physics.catalogue_file import read_catalogue
 
 FORMAT = "relcorr-stations/1"
 DAYS_PER_JULIAN_YEAR = 365.25
@@ -81,18 +77,7 @@ def enu_to_itrs_m(position_m: np.ndarray, enu_m: np.ndarray) -> np.ndarray:
 
 def load_catalogue(path: str | Path) -> StationCatalogue:
     path = Path(path)
-    try:
-        raw = path.read_bytes()
-        doc = tomllib.loads(raw.decode("utf-8"))
-    except FileNotFoundError:
-        raise CatalogueError(f"{path}: file not found") from None
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as exc:
-        raise CatalogueError(f"{path}: TOML syntax error: {exc}") from None
-    if doc.get("format") != FORMAT:
-        raise CatalogueError(f"{path}: format: found {doc.get('format')!r}, expected {FORMAT!r}")
-    stations = doc.get("stations")
-    if not isinstance(stations, dict) or not stations:
-        raise CatalogueError(f"{path}: stations: expected a non-empty table of [stations.CODE] tables")
+    raw, doc, stations = read_catalogue(path, FORMAT, "stations", "CODE", CatalogueError)
     unknown_top = set(doc) - {"format", "stations"}
     if unknown_top:
         raise CatalogueError(f"{path}: {sorted(unknown_top)[0]}: unknown key; expected format, stations")
