@@ -77,7 +77,7 @@ configure_offline()
 from pipelines.demo import CONJUNCTION_MJD, PROBE, STATIONS  # noqa: E402
 from pipelines.ingest import iter_ingest, output_schema, quarantine_schema  # noqa: E402
 from pipelines.parquet_io import AtomicParquetWriter  # noqa: E402
-from pipelines.tasks import _count_reasons, _count_values, apply_stage  # noqa: E402
+from pipelines.tasks import _count_reasons, apply_stage, stream_stage  # noqa: E402
 from stages.base import StageContext  # noqa: E402
 from stages.light_time import LightTime  # noqa: E402
 from stages.physics.constants import C_M_PER_S  # noqa: E402
@@ -137,32 +137,15 @@ def context(columns) -> StageContext:
 
 
 def run_stage_task(stage, params, src: Path, dst: Path, qdst: Path, batch_rows: int) -> dict:
-    """What StageTask.execute does for one stage: stream, apply, write records + quarantine, count."""
-    pf = pq.ParquetFile(src)
-    in_schema = pa.schema(list(pf.schema_arrow))
-    ctx = context(in_schema.names)
-    provided = [c.field() for c in stage.provides]
-    meta = {"fingerprint": "bench"}
-    w = AtomicParquetWriter(dst, pa.schema(list(in_schema) + provided), meta)
-    q = AtomicParquetWriter(qdst, quarantine_schema(in_schema), meta)
-    reasons: dict[str, int] = {}
-    flags: dict[str, dict[str, int]] = {c: {} for c in stage.flag_columns}
-    t_apply = 0.0
-    tag = stage.tag()
-    for batch in pf.iter_batches(batch_size=batch_rows):
-        table = pa.Table.from_batches([batch])
-        t0 = time.perf_counter()
-        good, quarantined = apply_stage(stage, params, ctx, table, provided, tag)
-        t_apply += time.perf_counter() - t0
-        w.write(good)
-        q.write(quarantined)
-        _count_reasons(reasons, quarantined)
-        for col, acc in flags.items():
-            _count_values(acc, good[col])
-    q.close({"stats": {"reasons": reasons}})
+    """What StageTask does for one stage (pipelines.tasks.stream_stage), with the stage's own time counted."""
+    timing: dict = {}
+    ctx = context(pq.read_schema(src).names)
+    stats, w, q = stream_stage(stage, params, ctx, src, dst, qdst, {"fingerprint": "bench"}, {"fingerprint": "bench"},
+                               batch_rows, timing)
+    q.close()
     w.close()
-    return {"rows_in": pf.metadata.num_rows, "rows_out": w.rows, "rows_q": q.rows, "reasons": reasons,
-            "apply_s": t_apply}
+    return {"rows_in": stats["rows_in"], "rows_out": stats["rows_out"], "rows_q": stats["rows_quarantined"],
+            "reasons": stats["reasons"], "apply_s": timing.get("apply_s", 0.0)}
 
 
 # ---------------------------------------------------------------------------------------------

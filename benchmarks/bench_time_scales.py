@@ -36,7 +36,7 @@ import erfa  # noqa: E402
 
 from pipelines.ingest import iter_ingest, output_schema, quarantine_schema  # noqa: E402
 from pipelines.parquet_io import AtomicParquetWriter  # noqa: E402
-from pipelines.tasks import apply_stage  # noqa: E402
+from pipelines.tasks import stream_stage  # noqa: E402
 from stages.base import StageContext  # noqa: E402
 from stages.physics.leap_seconds import load_leap_table  # noqa: E402
 from stages.time_scales import TimeScales  # noqa: E402
@@ -77,7 +77,6 @@ def main() -> None:
     stage = TimeScales()
     params = stage.defaults()
     ctx = StageContext(record_kind="tracking", models={"eop_beyond_table": "flag"})
-    provided = [c.field() for c in stage.provides]
 
     with tempfile.TemporaryDirectory() as d:
         d = Path(d)
@@ -105,13 +104,10 @@ def main() -> None:
         def apply_only():
             return [stage.apply(t, params, ctx) for t in batches]
 
-        def stage_task():
-            pf = pq.ParquetFile(ingested)
-            schema = pa.schema(list(pf.schema_arrow))
-            w = AtomicParquetWriter(d / "ts.parquet", pa.schema(list(schema) + provided), {"fingerprint": "bench"})
-            for b in pf.iter_batches(batch_size=args.batch_rows):
-                good, _ = apply_stage(stage, params, ctx, pa.Table.from_batches([b]), provided, stage.tag())
-                w.write(good)
+        def stage_task():  # what StageTask does: pipelines.tasks.stream_stage, then close both files
+            _, w, q = stream_stage(stage, params, ctx, ingested, d / "ts.parquet", d / "ts.q.parquet",
+                                   {"fingerprint": "bench"}, {"fingerprint": "bench"}, args.batch_rows)
+            q.close()
             w.close()
 
         t_apply, results = timed(apply_only)

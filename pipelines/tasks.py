@@ -169,38 +169,53 @@ class StageTask(_PartitionTask):
         sp = step.stage
         stage = sp.cls()
         ctx = stage_context(cfg, self.partition, sp)
-        pf = pq.ParquetFile(upstream.output)
-        in_schema = pa.schema(list(pf.schema_arrow))
-        provided = [c.field() for c in sp.cls.provides]
-        summary = None
-        if sp.cls.partition_columns:  # a whole-partition pass over a few projected columns
-            state = stage.prepare(pf.read(columns=list(sp.cls.partition_columns)), sp.params, ctx)
-            ctx = dataclasses.replace(ctx, state=state)
-            summary = getattr(state, "summary", None)
-        writer = AtomicParquetWriter(step.output, pa.schema(list(in_schema) + provided), _meta(step, self.partition, "records"))
-        qwriter = AtomicParquetWriter(step.quarantine, ingest_mod.quarantine_schema(in_schema), _meta(step, self.partition, "quarantine"))
-        reasons: dict[str, int] = {}
-        flags: dict[str, dict[str, int]] = {c: {} for c in sp.cls.flag_columns}
-        tag = sp.cls.tag()
-        try:
-            for batch in pf.iter_batches(batch_size=cfg.batch_rows):
-                table = pa.Table.from_batches([batch])
-                good, q = apply_stage(stage, sp.params, ctx, table, provided, tag)
-                writer.write(good)
-                qwriter.write(q)
-                _count_reasons(reasons, q)
-                for col, acc in flags.items():
-                    _count_values(acc, good[col])
-        except BaseException:
-            writer.abort()
-            qwriter.abort()
-            raise
-        stats = {"rows_in": pf.metadata.num_rows, "rows_out": writer.rows, "rows_quarantined": qwriter.rows,
-                 "reasons": dict(sorted(reasons.items())),
-                 "flags": {c: dict(sorted(acc.items())) for c, acc in flags.items()}}
-        if summary is not None:
-            stats["summary"] = summary
+        stats, writer, qwriter = stream_stage(stage, sp.params, ctx, upstream.output, step.output, step.quarantine,
+                                              _meta(step, self.partition, "records"),
+                                              _meta(step, self.partition, "quarantine"), cfg.batch_rows)
         return self._finish(step, stats, writer, qwriter, started)
+
+
+def stream_stage(stage, params, ctx, src, out_path, q_path, meta: dict, q_meta: dict, batch_rows: int,
+                 timing: dict | None = None):
+    """Run one stage over the Parquet file ``src`` batch by batch (after its whole-partition pass, if it
+    declares one).  Returns (stats, records writer, quarantine writer) with both writers still open:
+    the caller closes them in the order that marks completion.  ``timing["apply_s"]``, when given,
+    accumulates the time spent in the stage itself."""
+    pf = pq.ParquetFile(src)
+    in_schema = pa.schema(list(pf.schema_arrow))
+    provided = [c.field() for c in stage.provides]
+    summary = None
+    if stage.partition_columns:  # a whole-partition pass over a few projected columns
+        state = stage.prepare(pf.read(columns=list(stage.partition_columns)), params, ctx)
+        ctx = dataclasses.replace(ctx, state=state)
+        summary = getattr(state, "summary", None)
+    writer = AtomicParquetWriter(out_path, pa.schema(list(in_schema) + provided), meta)
+    qwriter = AtomicParquetWriter(q_path, ingest_mod.quarantine_schema(in_schema), q_meta)
+    reasons: dict[str, int] = {}
+    flags: dict[str, dict[str, int]] = {c: {} for c in stage.flag_columns}
+    tag = stage.tag()
+    try:
+        for batch in pf.iter_batches(batch_size=batch_rows):
+            table = pa.Table.from_batches([batch])
+            t0 = time.perf_counter()
+            good, q = apply_stage(stage, params, ctx, table, provided, tag)
+            if timing is not None:
+                timing["apply_s"] = timing.get("apply_s", 0.0) + time.perf_counter() - t0
+            writer.write(good)
+            qwriter.write(q)
+            _count_reasons(reasons, q)
+            for col, acc in flags.items():
+                _count_values(acc, good[col])
+    except BaseException:
+        writer.abort()
+        qwriter.abort()
+        raise
+    stats = {"rows_in": pf.metadata.num_rows, "rows_out": writer.rows, "rows_quarantined": qwriter.rows,
+             "reasons": dict(sorted(reasons.items())),
+             "flags": {c: dict(sorted(acc.items())) for c, acc in flags.items()}}
+    if summary is not None:
+        stats["summary"] = summary
+    return stats, writer, qwriter
 
 
 def _count_values(acc: dict[str, int], column) -> None:
