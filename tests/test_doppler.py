@@ -305,6 +305,13 @@ def test_solar_shapiro_signature_bertotti_iess_tortora():
             assert np.all(np.diff(rel) < 0)  # later records: larger b, smaller signal
             assert np.all(rel > 0)  # b grows, so the delay falls: y > 0
             rel_g1 = rel
+    # one-way (the downleg alone): half the two-way signature, 2(1+g) GM/(c^3 b) bdot = 5.3e-10 at
+    # b = 1.6 R_sun -- the "about 5e-10" one-way figure of the same differentiation
+    one = dp.one_way_doppler(mjd, sod_end, tc, st, sc, sun, gm, bodies=("sun",), bending_bodies=())
+    y_one = 2 * 2 * GM_SUN / (C**3 * b0) * vy
+    assert 5.2e-10 < y_one < 5.4e-10
+    b_down_only = impact(one.end.tx_pos_m, one.end.rx_pos_m)
+    np.testing.assert_allclose(one.relativistic["sun"][2], y_one * b0 / b_down_only[2], rtol=2e-2)
     # PPN scaling (1+gamma) of eq. 1 of Bertotti, Iess & Tortora 2003; exact
     # up to the shift of the solved epochs by the ~1e-4 s delay change
     # (b moves by 30 km/s * 1e-4 s = 3 m, i.e. 3e-9 relative)
@@ -428,3 +435,26 @@ def test_de421_mars_conjunction_two_way(de421):
     # 60 s, far below 1e-13 (IERS TN36 Table 1.1 GM_E; magnitude argument)
     assert np.all(np.abs(sol.relativistic["earth"]) < 1e-13)
     np.testing.assert_allclose(sol.y, sol.geometric + sol.relativistic_total, rtol=0, atol=1e-20)
+
+
+def test_gamma_partial_of_doppler_matches_central_difference():
+    # dy/dgamma (light_time eq. 3 differenced over the count) against a central difference of the Doppler
+    # itself in gamma, near a solar conjunction (geometry of the Bertotti-Iess-Tortora test above).
+    vy, b0 = 3.0e4, 2.0 * R_SUN_M
+    st = linear(np.array([-AU_M, b0, 0.0]), np.array([0.0, vy, 0.0]), 60000, 43200.0)
+    sc = linear(np.array([1.5 * AU_M, b0, 0.0]), np.array([0.0, vy, 0.0]), 60000, 43200.0)
+
+    def sun(name, mjd, sod):
+        return np.zeros((len(sod), 3)), np.zeros((len(sod), 3))
+
+    mjd = np.full(4, 60000)
+    sod = 43200.0 + np.array([-2e4, 0.0, 1e4, 4e4])
+    gm = {"sun": GM_SUN}
+    h = 1e-3
+    up = dp.two_way_doppler(mjd, sod, 60.0, st, sc, st, sun, gm, gamma=1.0 + h, bodies=("sun",))
+    dn = dp.two_way_doppler(mjd, sod, 60.0, st, sc, st, sun, gm, gamma=1.0 - h, bodies=("sun",))
+    mid = dp.two_way_doppler(mjd, sod, 60.0, st, sc, st, sun, gm, gamma=1.0, bodies=("sun",))
+    num = (up.relativistic["sun"] - dn.relativistic["sun"]) / (2 * h)
+    # tolerance: the solved epochs move with gamma by ~1e-4 s * h, i.e. ~1e-8 relative
+    np.testing.assert_allclose(mid.dgamma, num, rtol=1e-6, atol=0)
+    assert np.all(np.abs(mid.dgamma) > 1e-11)

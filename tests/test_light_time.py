@@ -490,3 +490,29 @@ def test_de421_mars_conjunction(de421):
     rt = lt.two_way_light_time(mjd, sod, rx, mars, station, de421, gm)
     assert np.all(rt.status == 0) and rt.up.iterations.max() <= 3
     np.testing.assert_allclose(rt.shapiro_s["sun"], 2 * sol.shapiro_s["sun"], rtol=1e-3)
+
+
+@pytest.mark.parametrize("bending", [False, True])
+@pytest.mark.parametrize("gamma", [1.0, 0.7])
+def test_gamma_partial_matches_central_difference(bending, gamma):
+    # eq. (3) of stages.physics.light_time, the analytic derivative of eq. (1) with respect to gamma,
+    # against a central difference of shapiro_delay_vec_s in gamma (step 1e-4: the term is linear in
+    # (1+gamma) apart from the bending term, so the difference's own error is ~1e-12 relative).
+    # Geometry: rays from 1 au to 1.5 au passing 1.2..30 solar radii from the Sun (IAU 2015 B3 radius).
+    rng = np.random.default_rng(3)
+    n = 200
+    b = rng.uniform(1.2, 30.0, n) * 6.957e8
+    r1 = np.column_stack([np.full(n, -1.496e11), b, rng.normal(0, 1e8, n)])
+    r2 = np.column_stack([np.full(n, 2.244e11), b, rng.normal(0, 1e8, n)])
+    gm = K.GM_SUN_TDB_M3_PER_S2
+    h = 1e-4
+    num = (lt.shapiro_delay_vec_s(r1, r2, gm, gamma + h, bending)
+           - lt.shapiro_delay_vec_s(r1, r2, gm, gamma - h, bending)) / (2 * h)
+    ana = lt.shapiro_dgamma_vec_s(r1, r2, gm, gamma, bending)
+    np.testing.assert_allclose(ana, num, rtol=1e-9, atol=0)
+    # and it is S/(1+gamma) without bending (Shapiro 1964 PPN scaling), slightly less with it
+    s = lt.shapiro_delay_vec_s(r1, r2, gm, gamma, bending)
+    if bending:
+        assert np.all(ana < s / (1 + gamma)) and np.all(ana > 0.999 * s / (1 + gamma))
+    else:
+        np.testing.assert_allclose(ana, s / (1 + gamma), rtol=1e-14, atol=0)

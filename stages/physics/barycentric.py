@@ -94,3 +94,28 @@ def times_from_tdb(tdb_mjd, tdb_sod_s, site_itrs_m, leap: LeapTable, grid_step_s
     utc_mjd, utc_sod = tai_to_utc(*ts.add_seconds(tt_mjd, tt_sod, -32.184), leap)
     nan = np.where(bad, np.nan, 0.0)
     return utc_mjd, utc_sod + nan, tt_mjd, tt_sod + nan, d + nan
+
+
+def tdb_from_tt(tt_mjd, tt_sod_s, site_itrs_m, leap: LeapTable, grid_step_s: float = 3600.0):
+    """(tdb_mjd, tdb_sod_s, tdb_minus_tt_s) of events given in TT at ITRS sites.
+
+    The forward relation of the time_scales stage: UTC from TT (TAI = TT -
+    32.184 s, IAU 1991 Res. A4; ``tai_to_utc``), UT1 from the IERS table, and
+    TDB - TT with the topocentric terms at the site (``time_scales.tdb_minus_tt_s``).
+    Used for the start of a Doppler count, which the station's clock keeps in
+    TT: start = end - count, whatever leap second lies between them.
+    """
+    from stages.physics.earth_orientation import ut1_minus_utc_s
+
+    mjd = np.asarray(tt_mjd, dtype=np.int64)
+    sod = np.asarray(tt_sod_s, dtype=float)
+    bad = ~np.isfinite(sod) | ~np.isfinite(site_itrs_m).all(axis=1)
+    sod = np.where(bad, 0.0, sod)
+    site_itrs_m = np.where(bad[:, None], 6.4e6, site_itrs_m)
+    utc_mjd, utc_sod = tai_to_utc(*ts.add_seconds(mjd, sod, -32.184), leap)
+    dut, _ = ut1_minus_utc_s(utc_mjd, utc_sod)
+    elong, u_km, v_km = ts.itrs_to_dtdb_site(site_itrs_m[:, 0], site_itrs_m[:, 1], site_itrs_m[:, 2])
+    d = ts.tdb_minus_tt_s(mjd, sod, (utc_sod + dut) / 86400.0, elong, u_km, v_km, grid_step_s=grid_step_s)
+    tdb_mjd, tdb_sod = ts.add_seconds(mjd, sod, d)
+    nan = np.where(bad, np.nan, 0.0)
+    return tdb_mjd, tdb_sod + nan, d + nan

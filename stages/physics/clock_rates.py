@@ -35,7 +35,9 @@ Functions:
 * :func:`tidal_potential_m2_per_s2`, :func:`sun_moon_geocentric_m` --
   quadrupole tidal potential of external bodies.
 * :func:`clock_rate_terms`, :func:`ground_clock_rate_terms`,
-  :func:`rate_from_geopotential_number` -- eq. (R) term by term.
+  :func:`rate_from_geopotential_number` -- eq. (R) term by term;
+  :func:`bcrs_clock_rate_terms` -- the same in the BCRS against TDB (a
+  clock anywhere in the solar system, e.g. a spacecraft oscillator).
 * :func:`eccentricity_term_s`, :func:`eccentricity_term_kepler_s`,
   :func:`kepler_secular_rate`, :func:`kepler_clock_offset_s` -- the secular and
   periodic parts of a Kepler-orbit clock.
@@ -63,6 +65,7 @@ __all__ = [
     "sun_moon_geocentric_m",
     "clock_rate_terms",
     "ground_clock_rate_terms",
+    "bcrs_clock_rate_terms",
     "rate_from_geopotential_number",
     "eccentricity_term_s",
     "eccentricity_term_kepler_s",
@@ -407,6 +410,64 @@ def ground_clock_rate_terms(
     v2 = omega_rad_per_s**2 * (x[..., 0] ** 2 + x[..., 1] ** 2)
     tidal = tidal_potential_m2_per_s2(x, tidal_bodies) if tidal_bodies else np.zeros_like(v2)
     return _rate_dict(u["monopole"], u["j2"], v2, tidal)
+
+
+def bcrs_clock_rate_terms(
+    pos_bcrs_m,
+    vel_bcrs_m_per_s,
+    body_pos_bcrs_m,
+    gm_m3_per_s2,
+    *,
+    earth_j2: bool = True,
+) -> dict:
+    """Fractional frequency of a clock against TDB, d tau/dTDB - 1, term by
+    term, for a clock at barycentric position x with barycentric velocity v:
+
+        d tau/dTCB = 1 - [v^2/2 + U(x)] / c^2            (TN36 eq. 10.3, c^-2)
+        dTDB/dTCB  = 1 - L_B                             (IAU 2006 Res. B3)
+        d tau/dTDB - 1 = L_B - [v^2/2 + U(x)] / c^2                          (B)
+
+    with U the Newtonian potential of the bodies, positive convention
+    (``U = sum_B GM_B/|x - x_B|``, plus the Earth's J2 term if "earth" is a
+    body and ``earth_j2``, from :func:`earth_potential_terms_m2_per_s2` about
+    the geocentre with the GCRS z axis as pole).  Keys as
+    :func:`clock_rate_terms`:
+
+        "gravitational" = -sum_B GM_B/(r_B c^2)       (monopoles)
+        "j2"            = -U_J2/c^2                     (0 without the Earth)
+        "velocity"      = -v^2/(2 c^2)                  (barycentric velocity)
+        "scale"         = L_B                           (TDB's rate)
+        "total"         = sum of the four.
+
+    (B) drops L_B [..]/c^2 (< 3e-16 for a clock at 1 au from the Sun) and the
+    c^-4 terms.  Near the Earth it is (R) of the module docstring composed with
+    d TT/d TDB at the clock, TDB - TT = (TDB - TT)_geocentre + v_E . x/c^2
+    (tests/test_clock_rates.py checks this against erfa.dtdb).
+
+    ``pos_bcrs_m``, ``vel_bcrs_m_per_s``: (n, 3); ``body_pos_bcrs_m``: body
+    name -> (n, 3) barycentric positions at the same instants;
+    ``gm_m3_per_s2``: body name -> GM.
+    """
+    x = _vec(pos_bcrs_m, "pos_bcrs_m")
+    v = _vec(vel_bcrs_m_per_s, "vel_bcrs_m_per_s")
+    mono = np.zeros(x.shape[:-1])
+    j2_term = np.zeros(x.shape[:-1])
+    for name, pb in body_pos_bcrs_m.items():  # a loop over bodies, not records
+        rel = x - _vec(pb, f"{name} position")
+        if name == "earth" and earth_j2:
+            u = earth_potential_terms_m2_per_s2(rel, gm_m3_per_s2=gm_m3_per_s2[name])
+            mono = mono + u["monopole"]
+            j2_term = j2_term + u["j2"]
+        else:
+            mono = mono + gm_m3_per_s2[name] / np.sqrt(_dot(rel, rel))
+    terms = {
+        "gravitational": -mono / _C2,
+        "j2": -j2_term / _C2,
+        "velocity": -0.5 * _dot(v, v) / _C2,
+        "scale": np.full(mono.shape, K.L_B),
+    }
+    terms["total"] = terms["gravitational"] + terms["j2"] + terms["velocity"] + terms["scale"]
+    return terms
 
 
 def rate_from_geopotential_number(c_m2_per_s2) -> np.ndarray:

@@ -60,9 +60,15 @@ import numpy as np
 
 from . import constants as K
 from . import light_time as lt
+from .clock_rates import bcrs_clock_rate_terms
 from .time_scales import add_seconds
 
-__all__ = ["DopplerSolution", "two_way_doppler", "one_way_doppler"]
+__all__ = ["DopplerSolution", "two_way_doppler", "one_way_doppler", "oscillator_terms",
+           "POTENTIAL_BODIES"]
+
+#: bodies whose potential enters a spacecraft oscillator's rate (DE421 names)
+POTENTIAL_BODIES = ("sun", "mercury", "venus", "earth", "moon", "mars", "jupiter", "saturn",
+                    "uranus", "neptune")
 
 _C = K.C_M_PER_S
 
@@ -71,7 +77,9 @@ _C = K.C_M_PER_S
 class DopplerSolution:
     """Count-averaged fractional frequency shift for n records.
 
-    ``y = geometric + sum(relativistic.values())`` (dimensionless).
+    ``y = geometric + sum(relativistic.values())`` (dimensionless);
+    ``dgamma`` = dy/d gamma from eq. (3) of ``light_time`` differenced like the
+    relativistic terms.
     ``relativistic[B] = -[S_B(t_end) - S_B(t_start)] / T_c`` summed over the
     legs; ``geometric`` is the rest (straight-line light time, including the
     tiny effect of the relativistic delay on the solved epochs).
@@ -83,6 +91,7 @@ class DopplerSolution:
     y: np.ndarray
     geometric: np.ndarray
     relativistic: dict[str, np.ndarray]
+    dgamma: np.ndarray
     count_s: np.ndarray
     status: np.ndarray
     status_end: np.ndarray
@@ -132,10 +141,11 @@ class _Leg:
     """One leg re-evaluated at its solved epochs: receiver/transmitter
     positions and each body's relativistic term."""
 
-    def __init__(self, rx_pos, tx_pos, s_terms):
+    def __init__(self, rx_pos, tx_pos, s_terms, dgamma_s):
         self.rx = rx_pos
         self.tx = tx_pos
         self.s = s_terms  # dict body -> seconds
+        self.dg = dgamma_s  # d(light time)/d gamma, seconds
 
 
 def _leg(rx_pos, t_rx, t_tx, tx_fn, bodies_fn, gm, gamma, bodies, bending, n, cache):
@@ -144,12 +154,14 @@ def _leg(rx_pos, t_rx, t_tx, tx_fn, bodies_fn, gm, gamma, bodies, bending, n, ca
     m_tx, s_tx = _safe_epoch(*t_tx)
     tx_pos = _position(tx_fn(m_tx, s_tx), n)
     s_terms = {}
+    dg = np.zeros(n)
     for b in bodies:
         pb_rx = _body(bodies_fn, b, t_rx, n, cache)
         pb_tx = _body(bodies_fn, b, t_tx, n, cache)
         s_terms[b] = lt.shapiro_delay_vec_s(tx_pos - pb_tx, rx_pos - pb_rx, gm[b], gamma,
                                             b in bending)
-    return _Leg(rx_pos, tx_pos, s_terms)
+        dg = dg + lt.shapiro_dgamma_vec_s(tx_pos - pb_tx, rx_pos - pb_rx, gm[b], gamma, b in bending)
+    return _Leg(rx_pos, tx_pos, s_terms, dg)
 
 
 def _body(bodies_fn, name, t, n, cache):
@@ -172,26 +184,30 @@ def _geo_diff_s(leg_a: _Leg, leg_b: _Leg) -> np.ndarray:
 
 def _assemble(legs_a, legs_b, count, status_end, status_start, bodies, end, start):
     geo = np.zeros(count.shape)
+    dgamma = np.zeros(count.shape)
     rel = {b: np.zeros(count.shape) for b in bodies}
     for la, lb in zip(legs_a, legs_b):
         geo = geo + _geo_diff_s(la, lb)
+        dgamma = dgamma + (la.dg - lb.dg)
         for b in bodies:
             rel[b] = rel[b] + (la.s[b] - lb.s[b])
     geo = -geo / count
+    dgamma = -dgamma / count
     rel = {b: -v / count for b, v in rel.items()}
     status = np.maximum(status_end, status_start)
     bad = status == lt.STATUS_INVALID
     geo[bad] = np.nan
+    dgamma[bad] = np.nan
     y = geo.copy()
     for b in bodies:
         rel[b][bad] = np.nan
         y = y + rel[b]
-    return DopplerSolution(y=y, geometric=geo, relativistic=rel, count_s=count, status=status,
+    return DopplerSolution(y=y, geometric=geo, relativistic=rel, dgamma=dgamma, count_s=count, status=status,
                            status_end=status_end, status_start=status_start, end=end,
                            start=start)
 
 
-def _prepare(t_end_mjd, t_end_sod_s, count_s):
+def _prepare(t_end_mjd, t_end_sod_s, count_s, t_start=None):
     mjd = np.atleast_1d(np.asarray(t_end_mjd)).astype(np.int64)
     sod = np.atleast_1d(np.asarray(t_end_sod_s, dtype=np.float64))
     n = sod.shape[0]
@@ -199,6 +215,12 @@ def _prepare(t_end_mjd, t_end_sod_s, count_s):
         raise ValueError(f"shapes: t_end_mjd {mjd.shape}, t_end_sod_s {sod.shape}")
     count = _check_count(count_s, n)
     ok = np.isfinite(sod)
+    if t_start is not None:
+        m0 = np.atleast_1d(np.asarray(t_start[0])).astype(np.int64)
+        s0 = np.atleast_1d(np.asarray(t_start[1], dtype=np.float64))
+        if m0.shape != (n,) or s0.shape != (n,):
+            raise ValueError(f"shapes: t_start {m0.shape}, {s0.shape}; expected ({n},)")
+        return n, count, (mjd, sod), (m0, np.where(ok, s0, np.nan))
     m0, s0 = add_seconds(mjd, np.where(ok, sod, 0.0), -count)
     s0 = np.where(ok, s0, np.nan)  # invalid records stay NaN (status 2 downstream)
     return n, count, (mjd, sod), (m0, s0)
@@ -228,6 +250,7 @@ def two_way_doppler(
     bending_bodies: Sequence[str] = lt.DEFAULT_BENDING_BODIES,
     tol_s: float = 1e-12,
     max_iter: int = 10,
+    t_start=None,
 ) -> DopplerSolution:
     """Two-way (or three-way) Doppler, eq. (1) with the round-trip light time.
 
@@ -239,9 +262,14 @@ def two_way_doppler(
     same station for two-way); ``spacecraft_state_fn``, ``bodies_fn``, ``gm``,
     ``gamma``, ``bodies``, ``bending_bodies``, ``tol_s``, ``max_iter`` as in
     :func:`light_time.two_way_light_time`, which solves both ends.
+    ``t_start``: optional (mjd, sod) TDB start of the count at the receiver;
+    default ``t_end - count_s``.  Give it when the count interval is kept by
+    a clock whose rate differs from TDB (a station clock keeps TT): eq. (1) is
+    then divided by the clock's ``count_s`` while the light times are solved
+    at the true TDB ends.
     """
     bodies = tuple(bodies)
-    n, count, t_end, t_start = _prepare(t_end_mjd, t_end_sod_s, count_s)
+    n, count, t_end, t_start = _prepare(t_end_mjd, t_end_sod_s, count_s, t_start)
     kw = dict(gamma=gamma, bodies=bodies, bending_bodies=bending_bodies, tol_s=tol_s,
               max_iter=max_iter)
     legs = []
@@ -277,13 +305,15 @@ def one_way_doppler(
     bending_bodies: Sequence[str] = lt.DEFAULT_BENDING_BODIES,
     tol_s: float = 1e-12,
     max_iter: int = 10,
+    t_start=None,
 ) -> DopplerSolution:
     """One-way Doppler: eq. (1) with the downleg light time only
     (``y = -[tau_down(t_end) - tau_down(t_start)]/T_c``); arguments as in
     :func:`two_way_doppler` (no transmitting station).  The spacecraft
-    oscillator's own frequency offset and drift are not modelled here."""
+    oscillator's rate (its proper time against TDB) is added by the caller
+    from the solved transmission epochs (``end.t_tx_*``, ``start.t_tx_*``)."""
     bodies = tuple(bodies)
-    n, count, t_end, t_start = _prepare(t_end_mjd, t_end_sod_s, count_s)
+    n, count, t_end, t_start = _prepare(t_end_mjd, t_end_sod_s, count_s, t_start)
     kw = dict(gamma=gamma, bodies=bodies, bending_bodies=bending_bodies, tol_s=tol_s,
               max_iter=max_iter)
     legs = []
@@ -298,3 +328,60 @@ def one_way_doppler(
         sols.append(sol)
     return _assemble(legs[0], legs[1], count, sols[0].status, sols[1].status, bodies,
                      sols[0], sols[1])
+
+
+# ---------------------------------------------------------------------------
+# the transmitting oscillator (one-way)
+# ---------------------------------------------------------------------------
+def oscillator_terms(
+    t2_start,
+    t2_end,
+    count_s,
+    spacecraft_state_fn: lt.StateFn,
+    bodies_fn: lt.BodyStateFn,
+    gm: Mapping[str, float],
+    bodies: Sequence[str] = POTENTIAL_BODIES,
+) -> dict[str, np.ndarray]:
+    """One-way Doppler: what the transmitting oscillator's own rate adds to y.
+
+    An oscillator of nominal frequency f in its proper time tau emits phase
+    f tau(t2); the phase received over the count is f [tau(t2e) - tau(t2s)],
+    so (with eq. (1) for the light-time part) ::
+
+        y_osc = (1/T_c) * integral_{t2s}^{t2e} (d tau/dTDB - 1) dt2          (4)
+
+    with d tau/dTDB - 1 from :func:`clock_rates.bcrs_clock_rate_terms` (eq. B
+    there: redshift in the potential of ``bodies``, the Earth's J2 included,
+    time dilation of the barycentric speed, and TDB's scale rate L_B).  The
+    integral is Simpson's rule on the ends and the middle of [t2s, t2e]
+    (the integrand is smooth: for a 90-minute orbit and T_c = 60 s the rule's
+    error is ~2e-17 in y).  Note the factor (t2e - t2s)/T_c = 1 + O(v/c):
+    with rates ~1e-8 it matters at 1e-12.
+
+    ``t2_start``, ``t2_end``: (mjd, sod) TDB transmission epochs (``start``
+    and ``end`` solutions of :func:`one_way_doppler`).  Returns a dict with
+    the keys of ``bcrs_clock_rate_terms`` (each integrated as in (4)).
+    """
+    m_s = np.asarray(t2_start[0]).astype(np.int64)
+    s_s = np.asarray(t2_start[1], dtype=np.float64)
+    m_e = np.asarray(t2_end[0]).astype(np.int64)
+    s_e = np.asarray(t2_end[1], dtype=np.float64)
+    n = s_s.size
+    count = _check_count(count_s, n)
+    span = (m_e - m_s).astype(np.float64) * 86400.0 + (s_e - s_s)
+    ok = np.isfinite(span)
+    m_s, s_s = _safe_epoch(m_s, s_s)
+    m_e, s_e = _safe_epoch(m_e, s_e)
+    span = np.where(ok, span, 0.0)
+    m_m, s_m = add_seconds(m_s, s_s, 0.5 * span)
+    weights = (1.0 / 6.0, 4.0 / 6.0, 1.0 / 6.0)
+    out: dict[str, np.ndarray] = {}
+    for w, (m, s) in zip(weights, ((m_s, s_s), (m_m, s_m), (m_e, s_e))):
+        ret = spacecraft_state_fn(m, s)
+        pos = np.asarray(ret[0], dtype=np.float64).reshape(n, 3)
+        vel = np.asarray(ret[1], dtype=np.float64).reshape(n, 3)
+        pb = {b: _position(bodies_fn(b, m, s), n) for b in bodies}
+        for k, v in bcrs_clock_rate_terms(pos, vel, pb, gm).items():
+            out[k] = out.get(k, 0.0) + w * v
+    scale = np.where(ok, span / count, np.nan)
+    return {k: v * scale for k, v in out.items()}

@@ -84,6 +84,8 @@ __all__ = [
     "sum_minus_chord_m",
     "shapiro_delay_s",
     "shapiro_delay_vec_s",
+    "shapiro_dgamma_vec_s",
+    "LinearisedBodyStates",
     "LegSolution",
     "RoundTripSolution",
     "solve_leg",
@@ -206,6 +208,63 @@ def shapiro_delay_vec_s(
     return shapiro_delay_s(r1, r2, r12, gm_m3_per_s2, gamma, bending, r1_plus_r2_minus_r12_m=den)
 
 
+def shapiro_dgamma_vec_s(
+    r1_vec_m, r2_vec_m, gm_m3_per_s2: float, gamma: float = 1.0, bending: bool = False
+) -> np.ndarray:
+    """Partial derivative of :func:`shapiro_delay_vec_s` with respect to PPN gamma, seconds.
+
+    Differentiating eq. (1) with ``k = (1+gamma) GM``, ``N = r1 + r2 + r12 + b``,
+    ``D = r1 + r2 - r12 + b`` and ``b = k/c^2`` (bending) or 0::
+
+        dS/dgamma = GM/c^3 ln(N/D) + (k/c^3) (GM/c^2) (1/N - 1/D)
+                  = S/(1+gamma) - 2 k GM r12 / (c^5 N D)                   (3)
+
+    (the second term only with ``bending``; N - D = 2 r12).  It is the
+    partial used to estimate gamma from range and Doppler residuals; it is
+    checked against a central difference in gamma in the tests.
+    """
+    a = np.asarray(r1_vec_m, dtype=np.float64)
+    b = np.asarray(r2_vec_m, dtype=np.float64)
+    r1, r2, r12, den = _lengths(a, b)
+    k = (1.0 + gamma) * gm_m3_per_s2
+    bend = k / _C**2 if bending else 0.0
+    num = r1 + r2 + r12 + bend
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out = (gm_m3_per_s2 / _C**3) * np.log(num / (den + bend))
+        if bending:
+            out = out - 2.0 * k * gm_m3_per_s2 * r12 / (_C**5 * num * (den + bend))
+    return out
+
+
+class LinearisedBodyStates:
+    """Body states for the relativistic light-time terms: exact at the first epochs asked,
+    then carried along linearly, p(t) = p(t0) + v(t0) (t - t0), while |t - t0| <= max_dt_s.
+
+    The trial epochs of a leg's iteration differ by well under a second after the
+    first step.  Error: (1/2) a dt^2 <= 0.5 * 6e-3 m/s^2 * (10 s)^2 = 0.3 m (the Earth's
+    barycentric acceleration is the largest of the bodies used); the Sun's term moves by
+    2 (1+gamma) GM/(c^3 b) ~ 1e-14 s per metre of body position at b = 3 solar radii,
+    so the effect is < 1e-14 s.  Never used for the station or spacecraft positions.
+    Used by the light_time and doppler stages; in the Doppler both ends of the count carry this error
+    alike, so their difference is smaller still (< 2e-16 in y for a 60 s count, tests/test_doppler_stage.py).
+    """
+
+    def __init__(self, eph, max_dt_s: float = 10.0):
+        self.eph = eph
+        self.max_dt_s = max_dt_s
+        self.anchor: dict[str, tuple] = {}
+
+    def __call__(self, name, mjd, sod):
+        a = self.anchor.get(name)
+        if a is not None and a[0].shape == np.shape(mjd):
+            dt = (np.asarray(mjd) - a[0]) * 86400.0 + (np.asarray(sod) - a[1])
+            if np.all(np.abs(dt) <= self.max_dt_s):
+                return a[2] + a[3] * dt[:, None], a[3]
+        p, v = self.eph.posvel_m(name, mjd, sod)
+        self.anchor[name] = (np.array(mjd, copy=True), np.array(sod, copy=True), p, v)
+        return p, v
+
+
 # ---------------------------------------------------------------------------
 # one leg
 # ---------------------------------------------------------------------------
@@ -230,6 +289,7 @@ class LegSolution:
     light_time_s: np.ndarray
     geometric_s: np.ndarray
     shapiro_s: dict[str, np.ndarray]
+    shapiro_dgamma_s: dict[str, np.ndarray]
     tx_pos_m: np.ndarray
     tx_vel_m_per_s: np.ndarray
     iterations: np.ndarray
@@ -240,6 +300,15 @@ class LegSolution:
         """Sum of the per-body relativistic terms, seconds."""
         total = np.zeros_like(self.light_time_s)
         for v in self.shapiro_s.values():
+            total = total + v
+        return total
+
+    @property
+    def dgamma_s(self) -> np.ndarray:
+        """d(light time)/d gamma, seconds: eq. (3) summed over the bodies (the
+        shift of the solved epochs by a change of gamma is second order)."""
+        total = np.zeros_like(self.light_time_s)
+        for v in self.shapiro_dgamma_s.values():
             total = total + v
         return total
 
@@ -332,6 +401,7 @@ def solve_leg(
     iterations = np.zeros(n, dtype=np.int16)
     geo = np.full(n, np.nan)
     shap = {b: np.full(n, np.nan) for b in bodies}
+    r1_body = {b: np.full((n, 3), np.nan) for b in bodies}  # transmitter - body at the last iterate
     tx_pos = np.full((n, 3), np.nan)
     tx_vel = np.full((n, 3), np.nan)
 
@@ -362,7 +432,7 @@ def solve_leg(
         for b in bodies:
             pb = _pos(bodies_fn(b, m_tx, s_tx), n)
             sb = shapiro_delay_vec_s(p - pb, r2_body[b], gm_m3_per_s2[b], gamma, bend[b])
-            sb_all[b] = sb
+            sb_all[b] = (sb, p - pb)
             s_sum = s_sum + sb
         with np.errstate(divide="ignore", invalid="ignore"):
             fprime = 1.0 - _dot(rho_vec, v) / (rho * _C)
@@ -378,7 +448,8 @@ def solve_leg(
         np.copyto(tx_pos, p, where=a3)
         np.copyto(tx_vel, v, where=a3)
         for b in bodies:
-            np.copyto(shap[b], sb_all[b], where=a)
+            np.copyto(shap[b], sb_all[b][0], where=a)
+            np.copyto(r1_body[b], sb_all[b][1], where=a3)
         iterations += a
         np.copyto(tau, tau_new, where=a & ~bad)  # keep times finite for the callables
         status[a & bad] = STATUS_INVALID
@@ -390,8 +461,11 @@ def solve_leg(
     geo[inval] = np.nan
     tx_pos[inval] = np.nan
     tx_vel[inval] = np.nan
+    dgamma = {}
     for b in bodies:
         shap[b][inval] = np.nan
+        dgamma[b] = shapiro_dgamma_vec_s(r1_body[b], r2_body[b], gm_m3_per_s2[b], gamma, bend[b])
+        dgamma[b][inval] = np.nan
     ok = ~inval
     t_tx_mjd = mjd_rx.copy()
     t_tx_sod = np.full(n, np.nan)
@@ -406,6 +480,7 @@ def solve_leg(
         light_time_s=tau,
         geometric_s=geo,
         shapiro_s=shap,
+        shapiro_dgamma_s=dgamma,
         tx_pos_m=tx_pos,
         tx_vel_m_per_s=tx_vel,
         iterations=iterations,
@@ -440,6 +515,11 @@ class RoundTripSolution:
     @property
     def shapiro_total_s(self) -> np.ndarray:
         return self.down.shapiro_total_s + self.up.shapiro_total_s
+
+    @property
+    def dgamma_s(self) -> np.ndarray:
+        """d(round trip)/d gamma, seconds."""
+        return self.down.dgamma_s + self.up.dgamma_s
 
 
 def one_way_light_time(

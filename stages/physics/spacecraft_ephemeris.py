@@ -159,6 +159,25 @@ class StateTable:
         tr = self._tracks[target]
         return (float(tr.mjd[0]) + tr.sod_s[0] / _DAY_S, float(tr.mjd[-1]) + tr.sod_s[-1] / _DAY_S)
 
+    def crosses_gap(self, target: str, mjd_a, sod_a, mjd_b, sod_b, max_gap_s: float) -> np.ndarray:
+        """True where the span [a, b] (TDB, a <= b) overlaps an interval between
+        tabulated epochs longer than ``max_gap_s`` -- although both ends may lie
+        outside it (a count interval longer than the gap).  Vectorised:
+        cumulative count of wide intervals, differenced at the ends' indices.
+        False for an unknown target (reported elsewhere)."""
+        mjd_a, sod_a, mjd_b, sod_b = np.broadcast_arrays(np.asarray(mjd_a), np.asarray(sod_a, dtype=float),
+                                                         np.asarray(mjd_b), np.asarray(sod_b, dtype=float))
+        tr = self._tracks.get(target)
+        if tr is None or tr.mjd.size < 2:
+            return np.zeros(mjd_a.shape, dtype=bool)
+        wide = np.concatenate([[0], np.cumsum(tr.h_s > float(max_gap_s))])  # wide intervals before node k
+        ka = np.searchsorted(tr.key_s, _seconds_between(tr.mjd[0], tr.sod_s[0], mjd_a, sod_a), side="right") - 1
+        kb = np.searchsorted(tr.key_s, _seconds_between(tr.mjd[0], tr.sod_s[0], mjd_b, sod_b), side="left")
+        m = tr.mjd.size
+        ka = np.clip(ka, 0, m - 1)
+        kb = np.clip(kb, 0, m - 1)
+        return (wide[kb] - wide[ka]) > 0
+
     # -- construction ------------------------------------------------------
     @classmethod
     def from_arrow(cls, table: pa.Table, label: str = "<table>", identity: dict | None = None) -> "StateTable":
