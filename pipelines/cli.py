@@ -191,7 +191,7 @@ def _print_summary(manifest: dict) -> None:
                   f"{_n(a.get('rows_in')):>10}{_n(a.get('rows_out')):>10}{_n(a.get('rows_quarantined')):>8}")
         if p["status"] != "ok":
             print(f"{'':<26}FAILED: {p.get('error')}")
-    series = [(p["partition"], name, st) for p in manifest["partitions"] for a in p["steps"]
+    series = [(p["partition"], name, st) for p in manifest["partitions"] for a in p["steps"] if a["step"] == "clock_series"
               for name, st in (a.get("summary") or {}).items()]
     if series:
         print()
@@ -200,6 +200,20 @@ def _print_summary(manifest: dict) -> None:
             adev = ", ".join(f"{x:.2e}" for x in (st.get("adev") or []) if x is not None) or "-"
             y, d = st.get("mean_fractional_frequency"), st.get("drift_per_day")
             print(f"{part:<26}{name:<52}{_e(y):>11}{_e(d):>11}  {adev}")
+        print()
+    gamma = (manifest.get("estimates") or {}).get("gamma")
+    if gamma:
+        print()
+        if gamma.get("delta_gamma") is None:
+            print(f"gamma estimate: none ({gamma.get('note')})")
+        else:
+            scale = gamma.get("sqrt_reduced_chi2")
+            head = (f"gamma = {gamma['gamma']:.8f}" if gamma.get("gamma") is not None else "gamma = gamma_model")
+            print(f"{head} {gamma['delta_gamma']:+.3e} +- {gamma['delta_gamma_sigma']:.3e} (formal, 1 sigma) "
+                  f"from {gamma['records']} records; sqrt(chi2/dof) = {_e(scale)}")
+            for label, b in gamma["biases"].items():
+                print(f"  bias {label:<24}{b['value']:+.3e} +- {b['sigma']:.3e}  ({b['records']} records, "
+                      f"correlation with gamma {b['correlation_with_gamma']:+.2f})")
         print()
     t = manifest["totals"]
     print(f"{'total':<26}{'':<18}{'':<9}{t['rows_in']:>10}{t['rows_out']:>10}{t['rows_quarantined']:>8}")

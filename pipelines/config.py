@@ -61,6 +61,10 @@ DEMO_KEYS = {
         Param("seed", "int", 20261202, "random seed of the generated scenario", minimum=0),
         Param("records_per_partition", "int", 2000, "records in each generated raw file", minimum=10, maximum=10_000_000),
         Param("partitions", "int", 2, "number of generated raw files", minimum=1, maximum=366),
+        Param("simulate_gamma", "float", 1.0, "conjunction scenario: PPN gamma the observed values are simulated with",
+              minimum=0.0, maximum=2.0),
+        Param("doppler_noise", "float", 1e-13, "conjunction scenario: white noise of the Doppler records, fractional "
+              "frequency (60 s counts)", minimum=0.0, maximum=1e-9),
     )
 }
 

@@ -250,8 +250,14 @@ def write_conjunction_states(path: Path) -> None:
     tmp.replace(path)
 
 
+DOPPLER_COUNT_S = 60.0
+UPLINK_HZ = 7.16e9               # an X-band uplink frequency of our scenario
+TURNAROUND = 880.0 / 749.0       # transponder ratio of our invented probe
+
+
 def _conjunction_records(cfg: Config, rng) -> pa.Table:
-    """Two-way range records, daily passes over +-30 days of the conjunction, observed = model + noise."""
+    """Two-way range and (when the config has a doppler stage) two-way Doppler records, daily passes over
+    +-30 days of the conjunction, observed = model computed with [demo] simulate_gamma + white noise."""
     from stages.base import StageContext
     from stages.light_time import LightTime
     from stages.physics.ephemeris import load_planetary_ephemeris
@@ -296,21 +302,56 @@ def _conjunction_records(cfg: Config, rng) -> pa.Table:
         res = stage.apply(table, params, ctx)
         for name, col in res.columns.items():
             table = table.append_column(name, pa.array(np.asarray(col)))
-    computed = np.asarray(LightTime().apply(table, light.params, ctx).columns["computed_value"])
+    demo = cfg.demo or {}
+    sim_gamma = demo.get("simulate_gamma", 1.0)
+    computed = np.asarray(LightTime().apply(table, {**light.params, "gamma": sim_gamma}, ctx).columns["computed_value"])
     value = computed + rng.normal(0.0, 1e-9, k)            # 1 ns of white noise (about 15 cm of range)
+    doppler = next((s for s in cfg.stages if s.name == "doppler"), None)
     iso = _iso(np.datetime64("1858-11-17", "ns") + (m.astype("timedelta64[D]").astype("timedelta64[ns]")
                                                      + (table["utc_sod_ps"].to_numpy() // 1000).astype("timedelta64[ns]")))
     ids = _ids("CNJ-", k)
     target = np.full(k, PROBE, dtype=object)
     target[5] = "TERN-9"                                    # target_unknown (light_time stage)
     iso[7] = f"{np.datetime64('1858-11-17') + np.timedelta64(CONJUNCTION_MJD - 40, 'D')}T12:00:00Z"  # outside the states
-    return pa.table({
+    ranges = pa.table({
         "record_id": pa.array(ids, pa.string()), "station": pa.array(station, pa.string()),
         "transmit_station": pa.array(station, pa.string()), "target": pa.array(target, pa.string()),
         "observable": pa.array(np.full(k, "range_two_way", dtype=object), pa.string()),
         "time_tag": pa.array(iso, pa.string()), "value": pa.array(value),
         "unit": pa.array(np.full(k, "s", dtype=object), pa.string()), "uncertainty": pa.array(np.full(k, 1e-9)),
+        "count_s": pa.array(np.full(k, np.nan)), "reference_frequency_hz": pa.array(np.full(k, np.nan)),
+        "turnaround_ratio": pa.array(np.full(k, np.nan)),
     })
+    if doppler is None:
+        return ranges.drop(["count_s", "reference_frequency_hz", "turnaround_ratio"])
+    # two-way Doppler at the same epochs: 60 s counts ending at the range tags, in Hz of the X-band downlink
+    from stages.doppler import Doppler
+
+    dt = table.append_column("count_s", pa.array(np.full(k, DOPPLER_COUNT_S))) \
+              .append_column("reference_frequency_hz", pa.array(np.full(k, UPLINK_HZ))) \
+              .append_column("turnaround_ratio", pa.array(np.full(k, TURNAROUND)))
+    dt = dt.set_column(dt.schema.get_field_index("observable"), "observable",
+                       pa.array(np.full(k, "doppler_two_way", dtype=object), pa.string()))
+    dt = dt.set_column(dt.schema.get_field_index("unit"), "unit", pa.array(np.full(k, "Hz", dtype=object), pa.string()))
+    y = np.asarray(Doppler().apply(dt, {**doppler.params, "gamma": sim_gamma}, ctx).columns["dop_computed_y"])
+    sigma_y = demo.get("doppler_noise", 1e-13)
+    hz = UPLINK_HZ * TURNAROUND
+    dop_value = (y + rng.normal(0.0, sigma_y, k)) * hz
+    count = np.full(k, DOPPLER_COUNT_S)
+    f_ref = np.full(k, UPLINK_HZ)
+    count[3] = 0.0                                          # count_interval_invalid (ingest)
+    f_ref[9] = np.nan                                       # reference_frequency_invalid (ingest)
+    dops = pa.table({
+        "record_id": pa.array(_ids("CNJD-", k), pa.string()), "station": pa.array(station, pa.string()),
+        "transmit_station": pa.array(station, pa.string()), "target": pa.array(np.full(k, PROBE, dtype=object), pa.string()),
+        "observable": pa.array(np.full(k, "doppler_two_way", dtype=object), pa.string()),
+        "time_tag": pa.array(iso, pa.string()), "value": pa.array(dop_value),
+        "unit": pa.array(np.full(k, "Hz", dtype=object), pa.string()),
+        "uncertainty": pa.array(np.full(k, sigma_y * hz if sigma_y > 0 else 1e-6)),
+        "count_s": pa.array(count), "reference_frequency_hz": pa.array(f_ref),
+        "turnaround_ratio": pa.array(np.full(k, TURNAROUND)),
+    })
+    return pa.concat_tables([ranges, dops])
 
 
 # ---------------------------------------------------------------------------- constellation scenario

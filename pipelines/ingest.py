@@ -54,8 +54,8 @@ def _type_ok(kind: str, t: pa.DataType) -> bool:
         return pa.types.is_string(t) or pa.types.is_large_string(t)
     if kind == "time":
         return pa.types.is_timestamp(t) or pa.types.is_string(t) or pa.types.is_large_string(t)
-    if kind == "number":
-        return pa.types.is_floating(t) or pa.types.is_integer(t)
+    if kind == "number":  # an all-null column (Arrow type null) is accepted: its records are checked one by one
+        return pa.types.is_floating(t) or pa.types.is_integer(t) or pa.types.is_null(t)
     raise AssertionError(kind)
 
 
@@ -178,6 +178,18 @@ def classify_batch(table: pa.Table, record_kind: str, leap: LeapTable, duplicate
             is_obs = np.asarray(pc.fill_null(pc.equal(obs, name), False).to_numpy(zero_copy_only=False), dtype=bool)
             unit_ok |= is_obs & _text_in(unit, units)
         rc.mark("unit_invalid", known & ~unit_ok)
+        doppler = _text_in(observable, schemas.DOPPLER_OBSERVABLES)
+        if doppler.any():
+            def number(name, default):
+                return _float(table[name]) if name in table.column_names else np.full(n, default)
+            count = number("count_s", np.nan)
+            rc.mark("count_interval_invalid", doppler & ~(np.isfinite(count) & (count > 0)))
+            f_ref = number("reference_frequency_hz", np.nan)
+            ratio = (_float(pc.fill_null(pc.cast(_plain(table["turnaround_ratio"]), pa.float64()), 1.0))  # null: 1
+                     if "turnaround_ratio" in table.column_names else np.ones(n))
+            in_hz = _text_in(unit, ["Hz"])
+            rc.mark("reference_frequency_invalid",
+                    doppler & ((in_hz & ~(np.isfinite(f_ref) & (f_ref > 0))) | ~(np.isfinite(ratio) & (ratio > 0))))
     else:
         rc.mark("clock_missing", _blank(table["remote_clock"]) | _blank(table["reference_clock"]))
         rc.mark("observable_unknown", ~_text_in(table["observable"], schemas.CLOCK_OBSERVABLES))

@@ -155,6 +155,7 @@ def build_manifest(plan: RunPlan, run_id: str, started: str, ended: str, complet
             entry["error"] = failed[0]["error"] if failed else "not run"
         partitions.append(entry)
     totals["balanced"] = balanced_all and totals["rows_in"] == totals["rows_out"] + totals["rows_quarantined"]
+    estimates = run_estimates(cfg, partitions)
     return {
         "manifest_version": MANIFEST_VERSION,
         "run": {
@@ -178,4 +179,25 @@ def build_manifest(plan: RunPlan, run_id: str, started: str, ended: str, complet
         ],
         "partitions": partitions,
         "totals": totals,
+        **({"estimates": estimates} if estimates else {}),
     }
+
+
+def run_estimates(cfg, partitions: list[dict[str, Any]]) -> dict[str, Any]:
+    """Run-level estimates: gamma from the gamma_fit normal equations of every complete partition,
+    summed (stages.physics.gamma_estimate), with gamma = gamma_model + delta_gamma."""
+    from stages.physics import gamma_estimate as ge
+
+    parts = [a["summary"]["normal_equations"] for p in partitions if p["status"] == "ok" for a in p["steps"]
+             if a["step"] == "gamma_fit" and a.get("summary")]
+    if not parts:
+        return {}
+    sol = ge.solve(ge.combine(parts))
+    models = {sp.params["gamma"] for sp in cfg.stages if sp.name in ("light_time", "doppler")}
+    gamma_model = models.pop() if len(models) == 1 else None
+    sol["gamma_model"] = gamma_model
+    sol["gamma"] = None if gamma_model is None or sol["delta_gamma"] is None else gamma_model + sol["delta_gamma"]
+    if len(models) > 1:
+        sol["note"] = "light_time and doppler used different gamma values; only delta_gamma is meaningful per stage"
+    sol["partitions"] = len(parts)
+    return {"gamma": sol}

@@ -26,11 +26,14 @@ TRACKING = (
     RawColumn("station", "text", True, "", "receiving station (the station whose clock tagged the record); for link_* observables the receiving spacecraft"),
     RawColumn("target", "text", True, "", "spacecraft or solar-system body tracked"),
     RawColumn("observable", "text", True, "", "observable type, see TRACKING_OBSERVABLES"),
-    RawColumn("time_tag", "time", True, "UTC", "reception time, UTC (Arrow timestamp or ISO 8601 string)"),
+    RawColumn("time_tag", "time", True, "UTC", "reception time, UTC (Arrow timestamp or ISO 8601 string); for Doppler the end of the count"),
     RawColumn("value", "number", True, "see unit", "observed value"),
-    RawColumn("unit", "text", True, "", "unit of value and uncertainty: s, m or Hz"),
+    RawColumn("unit", "text", True, "", "unit of value and uncertainty: s, m, Hz, or 1 (fractional frequency)"),
     RawColumn("uncertainty", "number", True, "see unit", "one-sigma uncertainty of value (>= 0)"),
     RawColumn("transmit_station", "text", False, "", "transmitting station of three-way records"),
+    RawColumn("count_s", "number", False, "s", "Doppler: count interval ending at the time tag, station clock seconds (> 0)"),
+    RawColumn("reference_frequency_hz", "number", False, "Hz", "Doppler: transmitted frequency (two-/three-way) or the spacecraft oscillator's nominal frequency (one-way); required when unit is Hz"),
+    RawColumn("turnaround_ratio", "number", False, "", "Doppler two-/three-way: spacecraft transponder ratio M (null or absent: 1)"),
 )
 
 CLOCK = (
@@ -51,9 +54,10 @@ TRACKING_OBSERVABLES = {
     "range_one_way": ("s", "m"),
     "range_two_way": ("s", "m"),
     "range_three_way": ("s", "m"),
-    "doppler_one_way": ("Hz",),
-    "doppler_two_way": ("Hz",),
-    "doppler_three_way": ("Hz",),
+    # Doppler: value = f_received - M f_reference (Hz) or that over M f_reference (unit "1")
+    "doppler_one_way": ("Hz", "1"),
+    "doppler_two_way": ("Hz", "1"),
+    "doppler_three_way": ("Hz", "1"),
     # links between two spacecraft: `station` names the receiving spacecraft, `target` the far one
     "link_range_one_way": ("s", "m"),
     "link_range_two_way": ("s", "m"),
@@ -88,7 +92,10 @@ INGEST_REASONS = {
     "value_not_finite": "value is null, NaN or infinite",
     "uncertainty_invalid": "uncertainty is null, NaN, infinite or negative",
     "averaging_invalid": "fractional-frequency (or two-way) record without a positive finite averaging interval",
+    "count_interval_invalid": "Doppler record without a positive, finite count interval count_s",
+    "reference_frequency_invalid": "Doppler record in Hz without a positive, finite reference_frequency_hz, or with a non-positive or non-finite turnaround_ratio",
 }
+DOPPLER_OBSERVABLES = ("doppler_one_way", "doppler_two_way", "doppler_three_way")
 
 
 def ingest_columns(record_kind: str) -> dict[str, pa.DataType | None]:

@@ -186,7 +186,8 @@ def stream_stage(stage, params, ctx, src, out_path, q_path, meta: dict, q_meta: 
     provided = [c.field() for c in stage.provides]
     summary = None
     if stage.partition_columns:  # a whole-partition pass over a few projected columns
-        state = stage.prepare(pf.read(columns=list(stage.partition_columns)), params, ctx)
+        present = set(pf.schema_arrow.names)  # optional columns may be absent from this chain
+        state = stage.prepare(pf.read(columns=[c for c in stage.partition_columns if c in present]), params, ctx)
         ctx = dataclasses.replace(ctx, state=state)
         summary = getattr(state, "summary", None)
     writer = AtomicParquetWriter(out_path, pa.schema(list(in_schema) + provided), meta)

@@ -64,40 +64,13 @@ def state_table(path):
     return load_cached(load_state_table, path)
 
 
-class _BodyStates:
-    """Body states for the relativistic light-time terms: exact at the first epochs asked,
-    then carried along linearly, p(t) = p(t0) + v(t0) (t - t0), while |t - t0| <= max_dt_s.
-
-    The trial epochs of a leg's iteration differ by well under a second after the
-    first step.  Error: (1/2) a dt^2 <= 0.5 * 6e-3 m/s^2 * (10 s)^2 = 0.3 m (the Earth's
-    barycentric acceleration is the largest of the bodies used); the Sun's term moves by
-    2 (1+gamma) GM/(c^3 b) ~ 1e-14 s per metre of body position at b = 3 solar radii,
-    so the effect is < 1e-14 s.  Never used for the station or spacecraft positions.
-    """
-
-    def __init__(self, eph, max_dt_s: float = 10.0):
-        self.eph = eph
-        self.max_dt_s = max_dt_s
-        self.anchor: dict[str, tuple] = {}
-
-    def __call__(self, name, mjd, sod):
-        a = self.anchor.get(name)
-        if a is not None and a[0].shape == np.shape(mjd):
-            dt = (np.asarray(mjd) - a[0]) * 86400.0 + (np.asarray(sod) - a[1])
-            if np.all(np.abs(dt) <= self.max_dt_s):
-                return a[2] + a[3] * dt[:, None], a[3]
-        p, v = self.eph.posvel_m(name, mjd, sod)
-        self.anchor[name] = (np.array(mjd, copy=True), np.array(sod, copy=True), p, v)
-        return p, v
-
-
 def _f64(name, unit, text):
     return Column(name, pa.float64(), unit, text)
 
 
 class LightTime(Stage):
     name = "light_time"
-    version = 1
+    version = 2
     summary = "light-time solution (one-, two-, three-way range) with the Shapiro delay of the Sun and planets, PPN gamma"
     record_kinds = ("tracking",)
     requires = (
@@ -126,6 +99,8 @@ class LightTime(Stage):
         _f64("relativistic_value", "s|m", "sum of the relativistic light-time terms, in the record's unit"),
         _f64("value_corrected", "s|m", "observed value minus the relativistic terms, in the record's unit"),
         _f64("residual", "s|m", "observed minus computed, in the record's unit"),
+        _f64("dcomputed_dgamma", "s|m", "partial derivative of the computed observable with respect to PPN gamma "
+             "(light_time eq. 3), in the record's unit"),
         Column("lt_iterations_down", pa.int8(), "", "iterations of the downleg solution"),
         Column("lt_iterations_up", pa.int8(), "", "iterations of the upleg solution"),
         Column("lt_status", pa.uint8(), "", "0 solved, 1 not converged, 2 invalid geometry (quarantined unless 0)"),
@@ -239,7 +214,7 @@ class LightTime(Stage):
 
         for kind, tgt, rcv, idx in groups:
             sc_fn = spacecraft(tgt)
-            bodies_fn = _BodyStates(eph)
+            bodies_fn = lt.LinearisedBodyStates(eph)
             if rcv is not None:
                 # a link between spacecraft: the receiving spacecraft at t3 from the states; both clocks
                 # taken to keep TDB, so the computed observable is the TDB interval itself
@@ -296,6 +271,7 @@ class LightTime(Stage):
             out["relativistic_value"][idx] = rel * scale
             out["value_corrected"][idx] = value - rel * scale
             out["residual"][idx] = value - tau * scale
+            out["dcomputed_dgamma"][idx] = sol.dgamma_s * scale
             out["lt_status"][idx] = status
             # why a record has no solution: ask the spacecraft ephemeris at the solved (or received) epoch
             t2m = np.where(np.isfinite(down.t_tx_sod_s), down.t_tx_mjd, t3_mjd[idx])

@@ -455,7 +455,6 @@ def test_summary_of_phase_series():
 
 def test_summary_of_frequency_series_with_gap_and_uneven_epochs():
     rng = np.random.default_rng(31)
-    tau0 = 1.0
     t = np.arange(5000, dtype=float)
     y = 3e-13 + 1e-13 * rng.normal(size=t.size)
     keep = np.ones(t.size, dtype=bool)

@@ -19,7 +19,9 @@ from pipelines.ingest import iter_ingest
 from stages.physics.leap_seconds import load_leap_table
 
 GOOD_ROW = dict(record_id="ok", station="CFL", target="TERN-4", observable="range_two_way",
-                time_tag="2016-12-31T12:00:00Z", value=1000.0, unit="s", uncertainty=1e-9, transmit_station="CFL")
+                time_tag="2016-12-31T12:00:00Z", value=1000.0, unit="s", uncertainty=1e-9, transmit_station="CFL",
+                count_s=None, reference_frequency_hz=None, turnaround_ratio=None)
+DOPPLER = dict(observable="doppler_two_way", unit="Hz", count_s=60.0, reference_frequency_hz=7.16e9)
 
 # (reason, changes to a good row)
 TRACKING_CASES = [
@@ -45,13 +47,24 @@ TRACKING_CASES = [
     ("value_not_finite", dict(value=None)),
     ("uncertainty_invalid", dict(uncertainty=-1.0)),
     ("uncertainty_invalid", dict(uncertainty=math.nan)),
+    # Doppler records (README, "Record schemas": count_s > 0; reference_frequency_hz > 0 when in Hz)
+    ("count_interval_invalid", dict(DOPPLER, count_s=0.0)),
+    ("count_interval_invalid", dict(DOPPLER, count_s=-60.0)),
+    ("count_interval_invalid", dict(DOPPLER, count_s=None)),
+    ("count_interval_invalid", dict(DOPPLER, observable="doppler_one_way", unit="1", count_s=math.inf)),
+    ("reference_frequency_invalid", dict(DOPPLER, reference_frequency_hz=None)),
+    ("reference_frequency_invalid", dict(DOPPLER, reference_frequency_hz=-7.16e9)),
+    ("reference_frequency_invalid", dict(DOPPLER, turnaround_ratio=0.0)),
+    ("reference_frequency_invalid", dict(DOPPLER, turnaround_ratio=math.nan)),
 ]
 
 VALID_EDGE_CASES = [
     dict(time_tag="2016-12-31T23:59:60Z"),            # leap second (Bulletin C 52)
     dict(time_tag="2015-06-30T23:59:60.999999999999Z"),  # leap second (Bulletin C 49), ps digits
     dict(time_tag="1972-01-01T00:00:00Z"),            # first day of integer-second UTC
-    dict(observable="doppler_two_way", unit="Hz"),
+    dict(DOPPLER),
+    dict(DOPPLER, observable="doppler_one_way", unit="1", reference_frequency_hz=None),  # y needs no frequency
+    dict(DOPPLER, turnaround_ratio=880.0 / 749.0),
     dict(observable="range_one_way", unit="m"),
 ]
 
@@ -140,7 +153,8 @@ def test_bad_clock_records(tmp_path, reason, change):
 
 def test_arrow_timestamps_are_accepted(tmp_path):
     schema = pa.schema([(k, pa.string()) for k in GOOD_ROW if k != "time_tag"] + [("time_tag", pa.timestamp("us", tz="UTC"))])
-    schema = pa.schema([f if f.name not in ("value", "uncertainty") else pa.field(f.name, pa.float64()) for f in schema])
+    numbers = ("value", "uncertainty", "count_s", "reference_frequency_hz", "turnaround_ratio")
+    schema = pa.schema([f if f.name not in numbers else pa.field(f.name, pa.float64()) for f in schema])
     import datetime
 
     t = datetime.datetime(2020, 2, 29, 23, 59, 59, 999999, tzinfo=datetime.timezone.utc)

@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 import pyarrow.parquet as pq
 import pytest
 
@@ -25,7 +26,8 @@ from tests.conftest import REPO
 def conjunction(tmp_path_factory):
     base = tmp_path_factory.mktemp("conjunction")
     assert main(["run", str(REPO / "sample_configs" / "conjunction.toml"), "--base-dir", str(base)]) == EXIT_OK
-    return base, pq.read_table(base / "products" / "conjunction-tracking.parquet")
+    t = pq.read_table(base / "products" / "conjunction-tracking.parquet")
+    return base, t.filter(pc.equal(t["observable"], "range_two_way"))  # the range records (Doppler: test_doppler_stage)
 
 
 def _same_states(a: pa.Table, b: pa.Table) -> None:
@@ -138,6 +140,7 @@ def test_gamma_scales_the_relativistic_terms(conjunction, tmp_path):
 def test_bad_records_are_quarantined_with_their_reason(conjunction):
     base, _ = conjunction
     q = pq.read_table(base / "products" / "conjunction-tracking.quarantine.parquet")
+    q = q.filter(pc.equal(q["observable"], "range_two_way"))
     reasons = dict(zip(q["target"].to_pylist(), q["quarantine_reason"].to_pylist()))
     assert reasons["TERN-9"] == "target_unknown"
     assert reasons["TERN-4"] == "target_outside_coverage"
@@ -185,20 +188,34 @@ def test_light_time_config_errors(tmp_path, capsys):
 
 
 def test_linearised_body_states_change_nothing_measurable(conjunction, monkeypatch):
-    """Bodies carried linearly between trial epochs (stages/light_time._BodyStates) against bodies
-    evaluated afresh at every trial epoch: the bound in its docstring is < 1e-14 s."""
+    """Bodies carried linearly between trial epochs (stages.physics.light_time.LinearisedBodyStates)
+    against bodies evaluated afresh at every trial epoch: the bound in its docstring is < 1e-14 s in a
+    light time, and < 2e-16 in a 60 s Doppler (both ends of the count carry the error alike)."""
     import stages.light_time as mod
     from stages.base import StageContext
+    from stages.doppler import Doppler
+    from stages.physics import light_time as lt
 
     _, t = conjunction
     t = t.slice(0, 300)
     keep = [c for c in t.column_names if c not in {f.name for f in mod.LightTime.provides}]
     t = t.select(keep)
+    d = t.set_column(t.schema.get_field_index("observable"), "observable", pa.array(["doppler_two_way"] * t.num_rows))
+    d = d.drop([c for c in d.column_names if c in {f.name for f in Doppler.provides}]
+               + ["count_s", "reference_frequency_hz", "turnaround_ratio"])
+    d = d.append_column("count_s", pa.array(np.full(t.num_rows, 60.0)))
     ctx = StageContext("tracking", {}, base_dir=str(REPO / "sample_configs"))
     params = {**mod.LightTime.defaults(), "spacecraft_states": "conjunction-states.parquet"}
+    dparams = {**Doppler.defaults(), "spacecraft_states": "conjunction-states.parquet"}
     fast = mod.LightTime().apply(t, params, ctx).columns
-    original = mod._BodyStates.__init__
-    monkeypatch.setattr(mod._BodyStates, "__init__", lambda self, eph, max_dt_s=10.0: original(self, eph, -1.0))
+    dfast = Doppler().apply(d, dparams, ctx).columns
+    original = lt.LinearisedBodyStates.__init__
+    monkeypatch.setattr(lt.LinearisedBodyStates, "__init__", lambda self, eph, max_dt_s=10.0: original(self, eph, -1.0))
     exact = mod.LightTime().apply(t, params, ctx).columns
+    dexact = Doppler().apply(d, dparams, ctx).columns
     for name in ("computed_value", "shapiro_sun_down_s", "shapiro_sun_up_s", "shapiro_earth_up_s"):
         assert np.abs(np.asarray(fast[name]) - np.asarray(exact[name])).max() < 1e-13, name
+    for name in ("dop_computed_y", "dop_shapiro_sun", "dop_shapiro_earth"):
+        diff = np.abs(np.asarray(dfast[name]) - np.asarray(dexact[name])).max()
+        print(name, diff)
+        assert diff < 2e-16, name
