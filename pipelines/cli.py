@@ -1,4 +1,4 @@
-"""The ``relcorr`` command: stages, check, run, demo.
+"""The ``relcorr`` command: stages, check, run, demo; verify, diff, audit (read-only, own modules).
 
 Exit codes are listed in pipelines/errors.py and README.md.
 """
@@ -275,6 +275,11 @@ def build_parser() -> argparse.ArgumentParser:
         r.add_argument("--workers", type=int, default=1, help="worker processes (default 1)")
         r.add_argument("--verbose", action="store_true", help="show luigi's own log and summary")
         r.set_defaults(func=fn)
+    # read-only commands on a finished run: verify, diff, audit (each module registers its own)
+    from pipelines import audit, diff, verify
+
+    for mod in (verify, diff, audit):
+        mod.add_parser(sub)
     return ap
 
 

@@ -10,6 +10,7 @@ EXIT_INTERNAL = 1      # a bug: please report, with the --verbose output
 EXIT_CONFIG = 2        # bad command line or configuration; nothing ran
 EXIT_PARTIAL = 3       # some partitions failed (file-level faults); the others completed
 EXIT_BALANCE = 4       # rows in != rows out + rows quarantined somewhere (never expected)
+EXIT_VERIFY = 5        # relcorr verify: a file the manifest lists is missing or modified, or an unexpected one
 
 EXIT_CODES = {
     EXIT_OK: "success: every partition produced its product and its counts balance",
@@ -17,6 +18,7 @@ EXIT_CODES = {
     EXIT_CONFIG: "configuration or command-line error; nothing was run",
     EXIT_PARTIAL: "one or more partitions failed (unreadable input, missing column, wrong type); the others completed",
     EXIT_BALANCE: "a row-count balance check failed (rows in != rows out + rows quarantined)",
+    EXIT_VERIFY: "relcorr verify: a file the manifest lists is missing or modified, or an unexpected product-like file is present",
 }
 
 
