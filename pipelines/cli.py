@@ -6,13 +6,14 @@ from __future__ import annotations
 
 import argparse
 import logging
+import os
 import secrets
 import sys
 from datetime import datetime, timezone
 import traceback
 from pathlib import Path
 
-from pipelines.errors import (EXIT_BALANCE, EXIT_CONFIG, EXIT_INTERNAL, EXIT_OK, EXIT_PARTIAL, ConfigError,
+from pipelines.errors import (EXIT_BALANCE, EXIT_CONFIG, EXIT_INTERNAL, EXIT_MISSING_DAYS, EXIT_OK, EXIT_PARTIAL, ConfigError,
                               RelcorrError)
 
 DEMO_CONFIG = "demo.toml"
@@ -106,15 +107,17 @@ def _quiet_luigi(verbose: bool) -> None:
 
 
 def run_config(config: str, base_dir: str | None = None, workers: int = 1, scheduler_host: str | None = None,
-               scheduler_port: int | None = None, verbose: bool = False) -> int:
+               scheduler_port: int | None = None, verbose: bool = False, date_from: str | None = None,
+               date_to: str | None = None, date: str | None = None) -> int:
     _offline()
     import luigi
 
     from pipelines import demo
     from pipelines.config import resolve_inputs
-    from pipelines.manifest import build_manifest, utc_now
-    from pipelines.parquet_io import write_json_atomic
-    from pipelines.plan import load_plan
+    from pipelines.manifest import build_manifest, partition_manifest, utc_now
+    from pipelines.parquet_io import sha256_file, write_json_atomic
+    from pipelines.partitions import select
+    from pipelines.plan import current_product_path, load_plan
     from pipelines.tasks import FingerprintTarget, RunAll
 
     load_plan.cache_clear()  # a new run sees the inputs as they are now
@@ -123,14 +126,17 @@ def run_config(config: str, base_dir: str | None = None, workers: int = 1, sched
         written = demo.generate(cfg)
         print(f"generated demo scenario: {len(written)} raw file(s) in {written[0].parent}")
         resolve_inputs(cfg)
-    elif not cfg.input_files:
+    elif not cfg.input_files and not cfg.dated:
         resolve_inputs(cfg)  # raises the ConfigError naming the pattern
+    chosen = select(cfg, date_from, date_to, date)
     started = utc_now()
     # sortable by start time, unique across concurrent runs
     run_id = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%S%fZ") + f"-{cfg.sha256[:8]}-{secrets.token_hex(2)}"
     plan = load_plan(str(cfg.path), cfg.sha256, str(cfg.base_dir))
-    print(f"run {run_id}: {cfg.name}, {len(plan.partitions)} partition(s), stages: "
+    print(f"run {run_id}: {cfg.name}, {chosen.describe()}, stages: "
           + (", ".join(s.name for s in cfg.stages) or "none"))
+    for day in chosen.missing_days:
+        print(f"  no input for {day}")
     _quiet_luigi(verbose)
     kwargs = dict(workers=workers, detailed_summary=True, log_level="DEBUG" if verbose else "CRITICAL")
     if scheduler_host:
@@ -139,19 +145,37 @@ def run_config(config: str, base_dir: str | None = None, workers: int = 1, sched
             kwargs["scheduler_port"] = scheduler_port
     else:
         kwargs["local_scheduler"] = True
-    task = RunAll(config_path=str(cfg.path), config_sha256=cfg.sha256, base_dir=str(cfg.base_dir), run_id=run_id)
-    result = luigi.build([task], **kwargs)
+    task = RunAll(config_path=str(cfg.path), config_sha256=cfg.sha256, base_dir=str(cfg.base_dir),
+                  partitions=tuple(chosen.partitions), run_id=run_id)
+    result = luigi.build([task], **kwargs) if chosen.partitions else None
     if verbose:
         print(result.summary_text)
     # Judge by completeness, not by luigi's status (another worker may have run a task).
     complete = {}
-    for pid, pp in plan.partitions.items():
-        for s in pp.steps:
+    for pid in chosen.partitions:
+        for s in plan.partitions[pid].steps:
             complete[(pid, s.position)] = FingerprintTarget(s.output, s.fingerprint).exists() and (
                 s.name != "product" or FingerprintTarget(s.quarantine, s.fingerprint).exists())
+    # every product is now complete under its fingerprint: point the stable names at them
+    for pid in chosen.partitions:
+        product = plan.partitions[pid].steps[-1]
+        if complete[(pid, product.position)]:
+            for target, quarantine in ((product.output, False), (product.quarantine, True)):
+                _point(current_product_path(cfg, pid, quarantine), target)
     auxiliary = _auxiliary(cfg)
-    manifest = build_manifest(plan, run_id, started, utc_now(), complete, auxiliary)
-    path = cfg.product_dir / "manifests" / f"{run_id}.json"
+    selection = None
+    if chosen.date_from is not None:
+        selection = {"from": chosen.date_from, "to": chosen.date_to, "missing_days": chosen.missing_days}
+    manifest = build_manifest(plan, run_id, started, utc_now(), complete, auxiliary, chosen.partitions, selection)
+    folder = cfg.product_dir / "manifests"
+    listed = []
+    for entry in manifest["partitions"]:
+        ppath = folder / run_id / f"{entry['partition']}.json"
+        write_json_atomic(ppath, partition_manifest(manifest, entry))
+        listed.append({"partition": entry["partition"], "path": str(ppath), "sha256": sha256_file(ppath)})
+    manifest["partition_manifests"] = listed
+    manifest["run"]["luigi_summary"] = luigi_counts(result.summary_text if result is not None else "")
+    path = folder / f"{run_id}.json"
     write_json_atomic(path, manifest)
     _print_summary(manifest)
     print(f"products  {cfg.product_dir}")
@@ -165,7 +189,37 @@ def run_config(config: str, base_dir: str | None = None, workers: int = 1, sched
         return EXIT_PARTIAL
     if status == "unbalanced":
         return EXIT_BALANCE
+    if chosen.missing_days:
+        print(f"no input for {len(chosen.missing_days)} day(s): {', '.join(chosen.missing_days)}", file=sys.stderr)
+        return EXIT_MISSING_DAYS
     return EXIT_OK
+
+
+def luigi_counts(summary_text: str) -> dict[str, int]:
+    """Task counts from luigi's own execution summary: scheduled, already complete, ran here, failed,
+    and ran by another worker (central scheduler)."""
+    import re
+
+    def count(pattern):
+        m = re.search(pattern, summary_text)
+        return int(m.group(1)) if m else 0
+
+    return {"scheduled": count(r"Scheduled (\d+) tasks"),
+            "complete_before": count(r"\* (\d+) complete ones were encountered"),
+            "ran": count(r"\* (\d+) ran successfully"),
+            "failed": count(r"\* (\d+) failed"),
+            "run_by_other_workers": count(r"\* (\d+) were being run by another worker")}
+
+
+def _point(link: Path, target: Path) -> None:
+    """Make ``link`` a relative symbolic link to ``target``, replacing what is there atomically."""
+    link.parent.mkdir(parents=True, exist_ok=True)
+    rel = os.path.relpath(target, link.parent)
+    if link.is_symlink() and os.readlink(link) == rel:
+        return
+    tmp = link.with_name(f".{link.name}.link-{os.getpid()}-{secrets.token_hex(3)}")
+    os.symlink(rel, tmp)
+    os.replace(tmp, link)
 
 
 def _auxiliary(cfg) -> list[dict]:
@@ -231,7 +285,8 @@ def _n(v) -> str:
 
 
 def cmd_run(args) -> int:
-    return run_config(args.config, args.base_dir, args.workers, args.scheduler_host, args.scheduler_port, args.verbose)
+    return run_config(args.config, args.base_dir, args.workers, args.scheduler_host, args.scheduler_port, args.verbose,
+                      args.date_from, args.date_to, args.date)
 
 
 def find_demo_config() -> Path | None:
@@ -270,6 +325,12 @@ def build_parser() -> argparse.ArgumentParser:
             r.add_argument("--base-dir", help="directory relative paths are taken from (default: the config's directory)")
             r.add_argument("--scheduler-host", help="central luigid host (default: embedded local scheduler)")
             r.add_argument("--scheduler-port", type=int, help="central luigid port")
+            r.add_argument("--from", dest="date_from", metavar="DATE",
+                           help="inputs by day ({date} template): first UTC day to run (YYYY-MM-DD)")
+            r.add_argument("--to", dest="date_to", metavar="DATE",
+                           help="last UTC day to run (default: the previous UTC day)")
+            r.add_argument("--date", metavar="DATE",
+                           help="run one UTC day (default for {date} inputs without --from: the previous UTC day)")
         else:
             r.add_argument("--dir", default="relcorr-demo", help="where the demo writes raw data, work files and products")
         r.add_argument("--workers", type=int, default=1, help="worker processes (default 1)")

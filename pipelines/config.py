@@ -6,8 +6,11 @@ reported together.  See README.md, "Configuration reference".
 """
 from __future__ import annotations
 
+import datetime
+import fnmatch
 import glob
 import hashlib
+import re
 import sys
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -98,6 +101,13 @@ class Config:
     stages: list[StagePlan]
     demo: dict[str, Any] | None = None
     input_files: list[Path] = field(default_factory=list)
+    #: partition id -> UTC day (ISO date) for inputs given by a {date} template
+    input_dates: dict[str, str] = field(default_factory=dict)
+
+    @property
+    def dated(self) -> bool:
+        """Inputs organised by UTC day (a ``{date}`` template): runs select a range of days."""
+        return any(DATE_FIELD in p for p in self.inputs)
 
     def resolved(self) -> dict[str, Any]:
         """The fully resolved configuration, as recorded in the manifest."""
@@ -290,15 +300,43 @@ def load_config(path: str | Path, base_dir: str | Path | None = None, require_in
     return cfg
 
 
+DATE_FIELD = "{date}"
+_DATE_GLOB = "[0-9][0-9][0-9][0-9]-[0-9][0-9]-[0-9][0-9]"
+
+
+def _date_regex(pattern: str) -> re.Pattern:
+    """A regex matching the paths of a {date} template, capturing the date (glob characters allowed)."""
+    out = []
+    for part in re.split(r"(\{date\})", pattern):
+        if part == DATE_FIELD:
+            out.append(r"(?P<date>\d{4}-\d{2}-\d{2})")
+        else:
+            out.append(fnmatch.translate(part)[4:-3])  # the glob as a regex, without its anchors
+    return re.compile("^" + "".join(out) + "$")
+
+
 def resolve_inputs(cfg: Config, require: bool = True) -> None:
-    """Expand the input globs; a pattern matching nothing is a config error."""
+    """Expand the input globs (and {date} templates); a pattern matching nothing is a config error."""
     problems = []
     files: list[Path] = []
+    dates: dict[Path, str] = {}
     for i, pattern in enumerate(cfg.inputs, start=1):
         full = pattern if Path(pattern).is_absolute() else str(cfg.base_dir / pattern)
-        matched = sorted(Path(p) for p in glob.glob(full))
+        if full.count(DATE_FIELD) > 1:
+            problems.append((str(cfg.path), f"pipeline.inputs[{i}]", f"found {pattern!r}, expected at most one {DATE_FIELD} field"))
+            continue
+        matched = sorted(Path(p) for p in glob.glob(full.replace(DATE_FIELD, _DATE_GLOB)))
         matched = [p for p in matched if p.is_file()]
-        if not matched and require:
+        if DATE_FIELD in full:
+            rx = _date_regex(full)
+            for p in matched:
+                m = rx.match(str(p))
+                try:
+                    dates[p] = datetime.date.fromisoformat(m.group("date")).isoformat()
+                except (AttributeError, ValueError):
+                    problems.append((str(cfg.path), f"pipeline.inputs[{i}]", f"{p}: the {DATE_FIELD} part is not a valid date"))
+            matched = [p for p in matched if p in dates]
+        if not matched and require and not cfg.dated:
             problems.append((str(cfg.path), f"pipeline.inputs[{i}]", f"found {pattern!r}, which matches no file (looked in {cfg.base_dir})"))
         files.extend(matched)
     # same file through two patterns: once
@@ -312,3 +350,4 @@ def resolve_inputs(cfg: Config, require: bool = True) -> None:
     if problems:
         raise ConfigError(problems)
     cfg.input_files = unique
+    cfg.input_dates = {partition_id(p): dates[p] for p in unique if p in dates}

@@ -58,8 +58,11 @@ def generate(cfg: Config) -> list[Path]:
     scenario = demo.get("scenario")
     if scenario in ("conjunction", "constellation"):
         make = _conjunction_records if scenario == "conjunction" else _constellation_records
+        table = make(cfg, rng)
+        if cfg.dated:  # an archive organised by UTC day: one file per day of the time tags
+            return _write_by_day(table, out, Path(cfg.inputs[0]).name)
         path = out / f"{scenario}-tracking.parquet"
-        pq.write_table(make(cfg, rng), path.with_name(f".{path.name}.tmp"))
+        pq.write_table(table, path.with_name(f".{path.name}.tmp"))
         path.with_name(f".{path.name}.tmp").replace(path)
         return [path]
     for k in range(demo.get("partitions", 2)):
@@ -71,6 +74,21 @@ def generate(cfg: Config) -> list[Path]:
         path = out / f"{cfg.record_kind}-{day}.parquet"
         tmp = path.with_name(f".{path.name}.tmp")
         pq.write_table(table, tmp, row_group_size=max(1000, n // 4))
+        tmp.replace(path)
+        written.append(path)
+    return written
+
+
+def _write_by_day(table: pa.Table, out: Path, template: str) -> list[Path]:
+    """Split records by the UTC day of their (ISO string) time tags into files named by the {date} template."""
+    import pyarrow.compute as pc
+
+    day = pc.utf8_slice_codeunits(table["time_tag"], 0, 10)
+    written = []
+    for d in sorted(set(day.to_pylist())):  # a loop over days
+        path = out / template.replace("{date}", d)
+        tmp = path.with_name(f".{path.name}.tmp")
+        pq.write_table(table.filter(pc.equal(day, d)), tmp)
         tmp.replace(path)
         written.append(path)
     return written

@@ -11,6 +11,7 @@ EXIT_CONFIG = 2        # bad command line or configuration; nothing ran
 EXIT_PARTIAL = 3       # some partitions failed (file-level faults); the others completed
 EXIT_BALANCE = 4       # rows in != rows out + rows quarantined somewhere (never expected)
 EXIT_VERIFY = 5        # relcorr verify: a file the manifest lists is missing or modified, or an unexpected one
+EXIT_MISSING_DAYS = 6  # relcorr run over UTC days: some days had no input; the others completed
 
 EXIT_CODES = {
     EXIT_OK: "success: every partition produced its product and its counts balance",
@@ -19,6 +20,7 @@ EXIT_CODES = {
     EXIT_PARTIAL: "one or more partitions failed (unreadable input, missing column, wrong type); the others completed",
     EXIT_BALANCE: "a row-count balance check failed (rows in != rows out + rows quarantined)",
     EXIT_VERIFY: "relcorr verify: a file the manifest lists is missing or modified, or an unexpected product-like file is present",
+    EXIT_MISSING_DAYS: "a run over UTC days found no input for some of them (listed); the other days completed",
 }
 
 

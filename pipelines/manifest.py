@@ -21,7 +21,7 @@ from typing import Any
 import pyarrow.parquet as pq
 
 from pipelines.parquet_io import read_relcorr_metadata, sha256_file
-from pipelines.plan import RunPlan, Step
+from pipelines.plan import PRODUCT_NAME, RunPlan, Step, current_product_path
 from pipelines.tasks import read_failure
 
 MANIFEST_VERSION = 1
@@ -73,7 +73,7 @@ def _file_entity(path: Path, role: str) -> dict[str, Any]:
     return entity
 
 
-def _step_activity(step: Step, run_id: str, complete: bool) -> dict[str, Any]:
+def _step_activity(step: Step, run_id: str, complete: bool, current: tuple[Path, Path] | None = None) -> dict[str, Any]:
     act: dict[str, Any] = {
         "step": step.name,
         "version": step.version,
@@ -109,6 +109,9 @@ def _step_activity(step: Step, run_id: str, complete: bool) -> dict[str, Any]:
     if "flags" in stats:
         act["flags"] = stats["flags"]  # value counts of the stage's per-record status columns
     act["outputs"] = [_file_entity(step.output, "records"), _file_entity(step.quarantine, "quarantine")]
+    if current is not None:  # the product: its stable names point at these files
+        for entity, link in zip(act["outputs"], current):
+            entity["current"] = str(link)
     files_out = act["outputs"][0].get("rows")
     files_q = act["outputs"][1].get("rows")
     act["balanced"] = (
@@ -121,14 +124,20 @@ def _step_activity(step: Step, run_id: str, complete: bool) -> dict[str, Any]:
 
 
 def build_manifest(plan: RunPlan, run_id: str, started: str, ended: str, complete: dict[tuple[str, int], bool],
-                   auxiliary: list[dict[str, Any]]) -> dict[str, Any]:
+                   auxiliary: list[dict[str, Any]], chosen: list[str] | None = None,
+                   selection: dict[str, Any] | None = None) -> dict[str, Any]:
+    """The run-level manifest of the partitions ``chosen`` (all by default).  ``selection`` (the UTC
+    days asked for and those without input) is recorded as given."""
     cfg = plan.config
     partitions = []
     all_ok = True
     balanced_all = True
     totals = {"rows_in": 0, "rows_out": 0, "rows_quarantined": 0}
-    for pid, pp in plan.partitions.items():
-        acts = [_step_activity(s, run_id, complete.get((pid, s.position), False)) for s in pp.steps]
+    for pid in (list(plan.partitions) if chosen is None else chosen):
+        pp = plan.partitions[pid]
+        links = (current_product_path(cfg, pid), current_product_path(cfg, pid, quarantine=True))
+        acts = [_step_activity(s, run_id, complete.get((pid, s.position), False),
+                               links if s.name == PRODUCT_NAME else None) for s in pp.steps]
         product = acts[-1]
         chain_ok = all(a["rows_in"] == b["rows_out"] for a, b in zip(acts[1:-1], acts[:-2]) if a.get("rows_in") is not None)
         status = "ok" if all(a["status"] in ("ran", "reused") for a in acts) else "failed"
@@ -166,7 +175,8 @@ def build_manifest(plan: RunPlan, run_id: str, started: str, ended: str, complet
             "status": "succeeded" if all_ok and totals["balanced"] else ("unbalanced" if all_ok else "partial"),
         },
         "software": software(),
-        "config": {"path": str(cfg.path), "sha256": cfg.sha256, "resolved": cfg.resolved()},
+        "config": {"path": str(Path(cfg.path).resolve()), "sha256": cfg.sha256, "resolved": cfg.resolved()},
+        **({"selection": selection} if selection else {}),
         "auxiliary": auxiliary,
         "stages": [
             {
@@ -201,3 +211,10 @@ def run_estimates(cfg, partitions: list[dict[str, Any]]) -> dict[str, Any]:
         sol["note"] = "light_time and doppler used different gamma values; only delta_gamma is meaningful per stage"
     sol["partitions"] = len(parts)
     return {"gamma": sol}
+
+
+def partition_manifest(run_manifest: dict[str, Any], entry: dict[str, Any]) -> dict[str, Any]:
+    """One partition's manifest: the run's header (run, software, config, models, stages) and its entry."""
+    head = {k: v for k, v in run_manifest.items() if k not in ("partitions", "totals", "estimates", "partition_manifests",
+                                                                "selection")}
+    return {**head, "partition": entry}

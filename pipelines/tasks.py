@@ -314,17 +314,20 @@ class ProductTask(_PartitionTask):
 
 
 class RunAll(luigi.WrapperTask):
-    """Every partition's product."""
+    """The products of the selected partitions (all of them when ``partitions`` is empty): one wrapper
+    task for a run, a date range or a night."""
 
     config_path = luigi.Parameter()
     config_sha256 = luigi.Parameter()
     base_dir = luigi.Parameter()
+    partitions = luigi.ListParameter(default=())
     run_id = luigi.Parameter(significant=False, default="")
 
     def requires(self):
         plan = load_plan(self.config_path, self.config_sha256, self.base_dir)
+        chosen = list(self.partitions) or list(plan.partitions)
         return [ProductTask(config_path=self.config_path, config_sha256=self.config_sha256, base_dir=self.base_dir,
-                            partition=pid, run_id=self.run_id) for pid in plan.partitions]
+                            partition=pid, run_id=self.run_id) for pid in chosen]
 
 
 def read_failure(step: Step) -> dict | None:

@@ -371,7 +371,14 @@ def verify_manifest(path: str | Path) -> VerifyReport:
                 if not out.get("path"):
                     continue
                 listed.add(_norm(out["path"]))
-                if act.get("step") == "product":
+                if out.get("current"):  # a product's stable name (a link into by-fingerprint/)
+                    listed.add(_norm(out["current"]))
+                    product_dirs.add(_norm(Path(out["current"]).parent))
+                    link = Path(out["current"])
+                    if not link.exists():  # (a later run may point it at its own product: that is fine)
+                        add(FileCheck("missing", f"current {out.get('role')} (link)", str(link), pid,
+                                      f"the stable name of the product ({out['path']}) is gone"))
+                elif act.get("step") == "product":
                     product_dirs.add(_norm(Path(out["path"]).parent))
                 chk = _check_file(Path(out["path"]), out.get("sha256"), out.get("bytes"),
                                   f"{act.get('step')} {out.get('role')}", pid, bool(out.get("missing")))

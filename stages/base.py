@@ -124,6 +124,9 @@ class StageContext:
     #: folder that relative paths in stage parameters are taken from: the config file's
     #: folder (``--base-dir`` moves the data folders only, not the model files)
     base_dir: str = "."
+    #: (first, last) UTC day (MJD) of the partition's records, when known: ``model_identities``
+    #: may then identify only the part of a model table those records can use
+    span_mjd: tuple[int, int] | None = None
 
     def path(self, value: str) -> "Path":
         """A path parameter resolved against ``base_dir``."""

@@ -43,7 +43,7 @@ from stages.base import Column, Param, Reference, Stage, StageContext, StageResu
 from stages.physics import doppler as dp
 from stages.physics import light_time as lt
 from stages.physics.barycentric import station_state, tdb_from_tt, times_from_tdb
-from stages.physics.earth_orientation import load_eop_table
+from stages.physics.earth_orientation import eop_identity
 from stages.physics.ephemeris import GM_M3_PER_S2, load_planetary_ephemeris
 from stages.physics.ephemeris_grid import load_gridded_ephemeris
 from stages.physics.file_cache import load_cached
@@ -159,7 +159,7 @@ class Doppler(Stage):
 
     def model_identities(self, params, context):
         ids = {"planetary ephemeris": load_planetary_ephemeris().identity,
-               "earth orientation": load_eop_table().identity,
+               "earth orientation": eop_identity(context.span_mjd),
                "leap seconds": load_leap_table().identity}
         if params["spacecraft_states"]:
             ids["spacecraft states"] = load_cached(load_state_table, context.path(params["spacecraft_states"])).identity

@@ -45,7 +45,7 @@ from stages.base import Column, Param, Reference, Stage, StageContext, StageResu
 from stages.physics import light_time as lt
 from stages.physics.barycentric import station_state, times_from_tdb
 from stages.physics.constants import C_M_PER_S
-from stages.physics.earth_orientation import load_eop_table
+from stages.physics.earth_orientation import eop_identity
 from stages.physics.ephemeris_grid import load_gridded_ephemeris
 from stages.physics.ephemeris import GM_M3_PER_S2, load_planetary_ephemeris
 from stages.physics.leap_seconds import load_leap_table
@@ -153,7 +153,7 @@ class LightTime(Stage):
 
     def model_identities(self, params, context):
         ids = {"planetary ephemeris": load_planetary_ephemeris().identity,
-               "earth orientation": load_eop_table().identity,
+               "earth orientation": eop_identity(context.span_mjd),
                "leap seconds": load_leap_table().identity}
         if params["spacecraft_states"]:
             ids["spacecraft states"] = state_table(context.path(params["spacecraft_states"])).identity

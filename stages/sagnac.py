@@ -91,11 +91,11 @@ class Sagnac(Stage):
         return problems
 
     def model_identities(self, params, context):
-        from stages.physics.earth_orientation import load_eop_table
+        from stages.physics.earth_orientation import eop_identity
 
         return {"clock catalogue": load_clock_catalogue(context.path(params["clocks"])).identity,
                 "station catalogue": load_catalogue(context.path(params["stations"])).identity,
-                "earth orientation": load_eop_table().identity}
+                "earth orientation": eop_identity(context.span_mjd)}
 
     def apply(self, table: pa.Table, params: Mapping[str, Any], context: StageContext) -> StageResult:
         n = table.num_rows

@@ -16,7 +16,7 @@ import pyarrow as pa
 
 from stages.base import Column, Param, Reference, Stage, StageContext, StageResult
 from stages.physics.barycentric import station_state
-from stages.physics.earth_orientation import EOP_BEYOND_TABLE, load_eop_table
+from stages.physics.earth_orientation import EOP_BEYOND_TABLE, eop_identity
 from stages.physics.ephemeris_grid import load_gridded_ephemeris
 from stages.physics.ephemeris import load_planetary_ephemeris
 
@@ -72,7 +72,7 @@ class StationPosition(Stage):
 
     def model_identities(self, params, context):
         return {"planetary ephemeris": load_planetary_ephemeris().identity,
-                "earth orientation": load_eop_table().identity}
+                "earth orientation": eop_identity(context.span_mjd)}
 
     def apply(self, table: pa.Table, params: Mapping[str, Any], context: StageContext) -> StageResult:
         eph = load_gridded_ephemeris()  # DE421 on a 15-minute grid: < 0.2 mm from the series itself

@@ -23,7 +23,7 @@ import pyarrow as pa
 
 from stages.base import Column, Param, Reference, Stage, StageContext, StageResult
 from stages.physics import time_scales as ts
-from stages.physics.earth_orientation import EOP_BEYOND_TABLE, EOP_NOT_USED, load_eop_table, ut1_minus_utc_s
+from stages.physics.earth_orientation import EOP_BEYOND_TABLE, EOP_NOT_USED, eop_identity, ut1_minus_utc_s
 from stages.physics.leap_seconds import load_leap_table, tai_minus_utc_s
 
 SITE_COLUMNS = (
@@ -97,7 +97,7 @@ class TimeScales(Stage):
     def model_identities(self, params, context):
         ids = {"leap seconds": load_leap_table().identity}
         if self._topocentric_possible(params, context):
-            ids["earth orientation"] = load_eop_table().identity
+            ids["earth orientation"] = eop_identity(context.span_mjd)
         return ids
 
     def apply(self, table: pa.Table, params: Mapping[str, Any], context: StageContext) -> StageResult:

@@ -144,9 +144,10 @@ def test_audit_of_an_older_run_reads_its_own_values(tmp_path, write_config):
     row = a_records[40]
     r = audit_record(ma, row["record_id"])
     f = r["found"][0]
-    assert f["source"] == "work"
+    # run A's product is kept under its fingerprint after run B (the stable name now points at B's)
+    assert f["source"] == "product" and f["file"] == part["steps"][-1]["outputs"][0]["path"]
     ts = next(s for s in f["steps"] if s["step"] == "time_scales")
     assert ts["params"]["tdb_site"] == "auto" and ts["columns"]["tdb_minus_tt_s"] == row["tdb_minus_tt_s"]
     now = pq.read_table(tmp_path / "products" / f"{DAY1}.parquet").to_pylist()
     later = next(x for x in now if x["record_id"] == row["record_id"])
-    assert later["tdb_minus_tt_s"] != row["tdb_minus_tt_s"]  # the product now holds run B's value
+    assert later["tdb_minus_tt_s"] != row["tdb_minus_tt_s"]  # the current product holds run B's value

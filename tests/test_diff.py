@@ -67,12 +67,12 @@ def test_changed_parameter_shows_in_changes_and_in_its_columns_only(tmp_path, wr
     for c in STATION_COLUMNS + ["tai_sod_s", "tt_sod_s", "tcg_sod_s", "tcg_minus_tt_s"]:
         assert d["columns"][c]["changed"] == 0 and d["columns"][c]["max_abs"] == 0.0, c
 
-    # run A's products were rewritten by run B: A's records come from its last stage's work file
-    ma_json = json.loads(ma.read_text())
-    for part in ma_json["partitions"]:
-        a_work = part["steps"][-2]["outputs"][0]["path"]
-        assert d["sources"][part["partition"]]["a"] == a_work
-        assert d["sources"][part["partition"]]["b"].endswith(f"products/{part['partition']}.parquet")
+    # run A's products are kept under their fingerprints after run B: each run's records come from its own
+    ma_json, mb_json = json.loads(ma.read_text()), json.loads(mb.read_text())
+    for part, part_b in zip(ma_json["partitions"], mb_json["partitions"]):
+        assert d["sources"][part["partition"]]["a"] == part["steps"][-1]["outputs"][0]["path"]
+        assert d["sources"][part["partition"]]["b"] == part_b["steps"][-1]["outputs"][0]["path"]
+        assert d["sources"][part["partition"]]["a"] != d["sources"][part["partition"]]["b"]
 
     # the statistics, recomputed here from the files themselves
     diffs = []

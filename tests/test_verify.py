@@ -85,7 +85,7 @@ def test_fresh_run_verifies_every_listed_file(tmp_path, write_config, monkeypatc
     # run with a relative config path, as a user in the run's folder would; verify from elsewhere
     monkeypatch.chdir(tmp_path)
     manifest = make_run(tmp_path, write_config, config_arg="run.toml")
-    assert json.loads(manifest.read_text())["config"]["path"] == "run.toml"
+    assert json.loads(manifest.read_text())["config"]["path"] == str(tmp_path / "run.toml")  # recorded absolute
     elsewhere = tmp_path / "elsewhere"
     elsewhere.mkdir()
     monkeypatch.chdir(elsewhere)
@@ -113,7 +113,8 @@ def test_fresh_run_verifies_every_listed_file(tmp_path, write_config, monkeypatc
 
 def test_tampered_files_are_named_and_fail(tmp_path, write_config, capsys):
     manifest = make_run(tmp_path, write_config)
-    product = tmp_path / "products" / f"{DAY1}.parquet"
+    product = (tmp_path / "products" / f"{DAY1}.parquet").resolve()  # the stable name links to it
+    assert product.parent.name == "by-fingerprint"
     data = bytearray(product.read_bytes())
     mid = len(data) // 2
     data[mid:mid + 8] = bytes(b ^ 0xFF for b in data[mid:mid + 8])  # same size, other bytes
@@ -154,7 +155,7 @@ def test_moved_files_are_missing_and_product_like_ones_unexpected(tmp_path, writ
     raw = tmp_path / "raw" / f"{DAY2}.parquet"
     (tmp_path / "archive").mkdir()
     raw.rename(tmp_path / "archive" / raw.name)
-    # a product renamed inside the product folder: missing where listed, unexpected where it is now
+    # a product's stable name renamed inside the product folder: missing where listed, unexpected where it is now
     product = products / f"{DAY1}.parquet"
     product.rename(products / "renamed.parquet")
     report = verify_manifest(manifest)

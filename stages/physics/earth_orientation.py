@@ -62,6 +62,37 @@ def load_eop_table() -> EopTable:
     return EopTable(table, ident)
 
 
+#: days of the table around a partition's records that its values may depend on: linear
+#: interpolation uses the neighbouring day; t1 of a round trip lies up to a day before the tag
+EOP_SPAN_MARGIN_DAYS = 2
+
+
+def eop_identity(span_mjd: tuple[int, int] | None = None, eop: EopTable | None = None) -> dict:
+    """Identity of the Earth-orientation values that records of UTC days ``span_mjd`` can use.
+
+    Without a span: the table's files (version and sha256).  With one: the sha256 of the rows
+    [first - 2, last + 2] (UT1 - UTC, polar motion, dX, dY and their measured/predicted flags,
+    and where the span runs past the table, the edge rows it holds), so that an upgraded table
+    changes the fingerprint of a partition only if the values its records use changed.
+    """
+    eop = eop or load_eop_table()
+    if span_mjd is None:
+        return eop.identity
+    c = _columns(eop)
+    lo = int(span_mjd[0]) - EOP_SPAN_MARGIN_DAYS - c.mjd0
+    hi = int(span_mjd[1]) + EOP_SPAN_MARGIN_DAYS - c.mjd0 + 1
+    rows = slice(min(max(lo, 0), c.n - 1), max(min(hi, c.n), 1))
+    h = hashlib.sha256()
+    h.update(np.array([c.mjd0 + rows.start, rows.stop - rows.start, lo < 0, hi > c.n], dtype=np.int64).tobytes())
+    for arr in (c.ut1_utc_s, c.ut1_status, c.pm_x_rad, c.pm_y_rad, c.pm_status):
+        h.update(np.ascontiguousarray(arr[rows]).tobytes())
+    drows = slice(min(rows.start, c.n_dcip - 1), max(min(rows.stop, c.n_dcip), 1))
+    for arr in (c.dx_rad, c.dy_rad, c.dcip_status):
+        h.update(np.ascontiguousarray(arr[drows]).tobytes())
+    return {"source": eop.identity["source"], "span_mjd": [int(span_mjd[0]), int(span_mjd[1])],
+            "values_sha256": h.hexdigest()}
+
+
 def ut1_minus_utc_s(utc_mjd: np.ndarray, utc_sod_s: np.ndarray, eop: EopTable | None = None):
     """UT1-UTC (s) interpolated in the table, and a status code per instant.
 
