@@ -284,7 +284,14 @@ def _n(v) -> str:
     return "-" if v is None else str(v)
 
 
+LOOPBACK_HOSTS = ("127.0.0.1", "localhost", "::1")
+
+
 def cmd_run(args) -> int:
+    if args.scheduler_host and args.scheduler_host not in LOOPBACK_HOSTS and not args.allow_remote_scheduler:
+        raise ConfigError([("command line", "--scheduler-host",
+                            f"found {args.scheduler_host!r}: a scheduler on another machine is an explicit opt-in "
+                            "(add --allow-remote-scheduler, on a trusted network only)")])
     return run_config(args.config, args.base_dir, args.workers, args.scheduler_host, args.scheduler_port, args.verbose,
                       args.date_from, args.date_to, args.date)
 
@@ -325,6 +332,8 @@ def build_parser() -> argparse.ArgumentParser:
             r.add_argument("--base-dir", help="directory relative paths are taken from (default: the config's directory)")
             r.add_argument("--scheduler-host", help="central luigid host (default: embedded local scheduler)")
             r.add_argument("--scheduler-port", type=int, help="central luigid port")
+            r.add_argument("--allow-remote-scheduler", action="store_true",
+                           help="allow a --scheduler-host other than loopback (a trusted network only)")
             r.add_argument("--from", dest="date_from", metavar="DATE",
                            help="inputs by day ({date} template): first UTC day to run (YYYY-MM-DD)")
             r.add_argument("--to", dest="date_to", metavar="DATE",

@@ -180,3 +180,10 @@ def test_earth_orientation_upgrade_recomputes_only_the_days_whose_values_changed
         pid = f"conjunction-{d}"
         assert st[(pid, "stations")] == "reused" and st[(pid, "time_scales")] == "ran", pid
         assert st[(pid, "station_position")] == "ran", pid
+
+
+def test_a_scheduler_on_another_machine_is_an_explicit_opt_in(archive, capsys):
+    capsys.readouterr()
+    code = main(["run", str(archive / "nightly.toml"), "--date", DAYS[0], "--scheduler-host", "10.1.2.3"])
+    assert code == EXIT_CONFIG
+    assert "--allow-remote-scheduler" in capsys.readouterr().err
