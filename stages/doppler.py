@@ -39,20 +39,19 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from stages.base import Column, Param, Reference, Stage, StageContext, StageResult
+from stages.base import Column, Reference, Stage, StageContext, StageResult
+from stages.common import light_time_model as ltm
 from stages.physics import doppler as dp
 from stages.physics import light_time as lt
 from stages.physics.barycentric import station_state, tdb_from_tt, times_from_tdb
-from stages.physics.earth_orientation import eop_identity
-from stages.physics.ephemeris import GM_M3_PER_S2, load_planetary_ephemeris
+from stages.physics.ephemeris import GM_M3_PER_S2
 from stages.physics.ephemeris_grid import load_gridded_ephemeris
-from stages.physics.file_cache import load_cached
 from stages.physics.leap_seconds import load_leap_table
 from stages.physics.time_scales import add_seconds
 from stages.physics.spacecraft_ephemeris import (STATUS_IN_GAP, STATUS_OUTSIDE_COVERAGE, STATUS_UNKNOWN_TARGET,
-                                                 load_state_table, target_posvel_bcrs_m)
+                                                 target_posvel_bcrs_m)
 
-DOPPLER_BODIES = ("sun", "moon", "jupiter", "saturn", "earth")
+DOPPLER_BODIES = ltm.LIGHT_TIME_BODIES
 OSCILLATOR_TERMS = ("gravitational", "j2", "velocity", "scale")
 _XYZ = ("x", "y", "z")
 DOP_OK, DOP_NOT_CONVERGED, DOP_INVALID = 0, 1, 2
@@ -105,20 +104,7 @@ class Doppler(Stage):
              "in the record's unit"),
         Column("dop_status", pa.uint8(), "", "0 solved, 1 not converged, 2 invalid (quarantined unless 0)"),
     )
-    params = (
-        Param("spacecraft_states", "str", "", "spacecraft state table (Parquet, relative to the config file); "
-              "empty: targets must be bodies of the planetary ephemeris"),
-        Param("gamma", "float", 1.0, "PPN parameter gamma (1 in general relativity)", minimum=0.0, maximum=2.0),
-        Param("bodies", "str", "sun,jupiter,saturn,earth",
-              "comma-separated bodies whose relativistic light-time term is included: " + ", ".join(DOPPLER_BODIES)),
-        Param("max_gap_s", "float", 43200.0, "widest gap between states the interpolation may bridge", unit="s",
-              minimum=60.0, maximum=864000.0),
-        Param("tolerance_s", "float", 1e-12, "convergence of each leg's iteration", unit="s", minimum=1e-13, maximum=1e-6),
-        Param("max_iterations", "int", 10, "iterations per leg before a record is declared not converged",
-              minimum=2, maximum=50),
-        Param("grid_step_s", "float", 3600.0, "grid of the precession-nutation matrix and of TDB - TT", unit="s",
-              minimum=60.0, maximum=3600.0),
-    )
+    params = ltm.light_time_params("grid of the precession-nutation matrix and of TDB - TT")
     references = (
         Reference("Moyer 2000, Formulation for Observed and Computed Values of Deep Space Network Data Types for "
                   "Navigation, JPL DESCANSO Monograph 2, sec. 13", "Doppler as differenced light time over the count"),
@@ -141,40 +127,20 @@ class Doppler(Stage):
     }
     flag_columns = ("dop_status",)
 
-    @staticmethod
-    def _bodies(params) -> tuple[str, ...]:
-        return tuple(b.strip() for b in params["bodies"].split(",") if b.strip())
-
     def validate(self, params, context):
-        problems = {}
-        bad = [b for b in self._bodies(params) if b not in DOPPLER_BODIES]
-        if bad:
-            problems["bodies"] = f"found {bad[0]!r}, expected a comma-separated list from: {', '.join(DOPPLER_BODIES)}"
-        if params["spacecraft_states"]:
-            try:
-                load_cached(load_state_table, context.path(params["spacecraft_states"]))
-            except (OSError, ValueError) as exc:
-                problems["spacecraft_states"] = str(exc)
-        return problems
+        return ltm.validate(params, context)
 
     def model_identities(self, params, context):
-        ids = {"planetary ephemeris": load_planetary_ephemeris().identity,
-               "earth orientation": eop_identity(context.span_mjd),
-               "leap seconds": load_leap_table().identity}
-        if params["spacecraft_states"]:
-            ids["spacecraft states"] = load_cached(load_state_table, context.path(params["spacecraft_states"])).identity
-        return ids
+        return ltm.model_identities(params, context)
 
     def apply(self, table: pa.Table, params: Mapping[str, Any], context: StageContext) -> StageResult:
         n = table.num_rows
         eph = load_gridded_ephemeris()
         leap = load_leap_table()
-        states = load_cached(load_state_table, context.path(params["spacecraft_states"])) \
-            if params["spacecraft_states"] else None
-        bodies = self._bodies(params)
+        states = ltm.spacecraft_states(params, context)
+        bodies = ltm.selected_bodies(params)
         grid = params["grid_step_s"]
-        opts = dict(gamma=params["gamma"], bodies=bodies, bending_bodies=tuple(b for b in bodies if b == "sun"),
-                    tol_s=params["tolerance_s"], max_iter=params["max_iterations"])
+        opts = ltm.solver_options(params)
         names = set(table.column_names)
 
         def equal(name, value):

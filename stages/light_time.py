@@ -41,27 +41,22 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from stages.base import Column, Param, Reference, Stage, StageContext, StageResult
+from stages.base import Column, Reference, Stage, StageContext, StageResult
+from stages.common import light_time_model as ltm
 from stages.physics import light_time as lt
 from stages.physics.barycentric import station_state, times_from_tdb
 from stages.physics.constants import C_M_PER_S
-from stages.physics.earth_orientation import eop_identity
 from stages.physics.ephemeris_grid import load_gridded_ephemeris
-from stages.physics.ephemeris import GM_M3_PER_S2, load_planetary_ephemeris
+from stages.physics.ephemeris import GM_M3_PER_S2
 from stages.physics.leap_seconds import load_leap_table
-from stages.physics.file_cache import load_cached
 from stages.physics.spacecraft_ephemeris import (STATUS_IN_GAP, STATUS_OUTSIDE_COVERAGE, STATUS_UNKNOWN_TARGET,
-                                                 load_state_table, target_posvel_bcrs_m)
+                                                 target_posvel_bcrs_m)
 
-LIGHT_TIME_BODIES = ("sun", "moon", "jupiter", "saturn", "earth")
+LIGHT_TIME_BODIES = ltm.LIGHT_TIME_BODIES
 LEGS = ("down", "up")
 _XYZ = ("x", "y", "z")
 
 LT_OK, LT_NOT_CONVERGED, LT_INVALID = 0, 1, 2
-
-
-def state_table(path):
-    return load_cached(load_state_table, path)
 
 
 def _f64(name, unit, text):
@@ -105,20 +100,7 @@ class LightTime(Stage):
         Column("lt_iterations_up", pa.int8(), "", "iterations of the upleg solution"),
         Column("lt_status", pa.uint8(), "", "0 solved, 1 not converged, 2 invalid geometry (quarantined unless 0)"),
     )
-    params = (
-        Param("spacecraft_states", "str", "", "spacecraft state table (Parquet, relative to the config file); "
-              "empty: targets must be bodies of the planetary ephemeris"),
-        Param("gamma", "float", 1.0, "PPN parameter gamma (1 in general relativity)", minimum=0.0, maximum=2.0),
-        Param("bodies", "str", "sun,jupiter,saturn,earth",
-              "comma-separated bodies whose relativistic light-time term is included: " + ", ".join(LIGHT_TIME_BODIES)),
-        Param("max_gap_s", "float", 43200.0, "widest gap between states the interpolation may bridge", unit="s",
-              minimum=60.0, maximum=864000.0),
-        Param("tolerance_s", "float", 1e-12, "convergence of each leg's iteration", unit="s", minimum=1e-13, maximum=1e-6),
-        Param("max_iterations", "int", 10, "iterations per leg before a record is declared not converged",
-              minimum=2, maximum=50),
-        Param("grid_step_s", "float", 3600.0, "grid of the precession-nutation matrix for stations at t1", unit="s",
-              minimum=60.0, maximum=3600.0),
-    )
+    params = ltm.light_time_params("grid of the precession-nutation matrix for stations at t1")
     references = (
         Reference("Moyer 2000, Formulation for Observed and Computed Values of Deep Space Network Data Types for "
                   "Navigation, JPL DESCANSO Monograph 2, sec. 8", "light-time solution and relativistic light-time term"),
@@ -135,38 +117,19 @@ class LightTime(Stage):
         "light_time_invalid": "geometrically impossible or non-finite light-time solution",
     }
 
-    @staticmethod
-    def _bodies(params) -> tuple[str, ...]:
-        return tuple(b.strip() for b in params["bodies"].split(",") if b.strip())
-
     def validate(self, params, context):
-        problems = {}
-        bad = [b for b in self._bodies(params) if b not in LIGHT_TIME_BODIES]
-        if bad:
-            problems["bodies"] = f"found {bad[0]!r}, expected a comma-separated list from: {', '.join(LIGHT_TIME_BODIES)}"
-        if params["spacecraft_states"]:
-            try:
-                state_table(context.path(params["spacecraft_states"]))
-            except (OSError, ValueError) as exc:
-                problems["spacecraft_states"] = str(exc)
-        return problems
+        return ltm.validate(params, context)
 
     def model_identities(self, params, context):
-        ids = {"planetary ephemeris": load_planetary_ephemeris().identity,
-               "earth orientation": eop_identity(context.span_mjd),
-               "leap seconds": load_leap_table().identity}
-        if params["spacecraft_states"]:
-            ids["spacecraft states"] = state_table(context.path(params["spacecraft_states"])).identity
-        return ids
+        return ltm.model_identities(params, context)
 
     def apply(self, table: pa.Table, params: Mapping[str, Any], context: StageContext) -> StageResult:
         n = table.num_rows
         eph = load_gridded_ephemeris()  # DE421 on a 15-minute grid: < 0.2 mm from the series itself
         leap = load_leap_table()
-        states = state_table(context.path(params["spacecraft_states"])) if params["spacecraft_states"] else None
-        bodies = self._bodies(params)
-        opts = dict(gamma=params["gamma"], bodies=bodies, bending_bodies=tuple(b for b in bodies if b == "sun"),
-                    tol_s=params["tolerance_s"], max_iter=params["max_iterations"])
+        states = ltm.spacecraft_states(params, context)
+        bodies = ltm.selected_bodies(params)
+        opts = ltm.solver_options(params)
 
         def equal(name, value):  # vectorised in Arrow: no Python string comparisons per record
             return np.asarray(pc.fill_null(pc.equal(table[name], value), False).to_numpy(zero_copy_only=False), dtype=bool)
