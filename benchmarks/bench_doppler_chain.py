@@ -27,8 +27,8 @@ import pyarrow.parquet as pq
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from bench_range_chain import (CONJUNCTION_MJD, DAY_NS, PROBE, STATES_FILE, STATIONS, AtomicParquetWriter,  # noqa: E402
-                               _count_reasons, iter_ingest, output_schema, quarantine_schema, run_stage_task, timed)
+from bench_range_chain import (CONJUNCTION_MJD, DAY_NS, PROBE, STATES_FILE, STATIONS, run_ingest,  # noqa: E402
+                               run_stage_task, timed)
 
 from pipelines.demo import TURNAROUND, UPLINK_HZ  # noqa: E402
 from stages.doppler import Doppler  # noqa: E402
@@ -77,16 +77,7 @@ def main() -> None:
         copy_s, _ = timed(lambda: pq.write_table(pq.read_table(raw), d / "copy.parquet", compression="zstd"))
 
         def ingest():
-            schema = pa.schema(list(pq.read_schema(raw)))
-            w = AtomicParquetWriter(d / "00.parquet", output_schema(schema), {"fingerprint": "bench"})
-            q = AtomicParquetWriter(d / "00.q.parquet", quarantine_schema(schema), {"fingerprint": "bench"})
-            reasons: dict[str, int] = {}
-            for b in iter_ingest(raw, "tracking", leap, args.batch_rows):
-                w.write(b.good)
-                q.write(b.quarantined)
-                _count_reasons(reasons, b.quarantined)
-            q.close()
-            w.close()
+            return run_ingest(raw, d / "00.parquet", d / "00.q.parquet", leap, args.batch_rows)
 
         rows = [("parquet copy", copy_s, None)]
         ingest_s, _ = timed(ingest)

@@ -114,6 +114,21 @@ def make_raw(path: Path, n: int, seed: int = 1) -> None:
     pq.write_table(table, path, row_group_size=262144, compression="zstd")
 
 
+def run_ingest(raw: Path, dst: Path, qdst: Path, leap, batch_rows: int) -> dict:
+    """What IngestTask does: ingest batch by batch, records and quarantine written atomically."""
+    schema = pa.schema(list(pq.read_schema(raw)))
+    w = AtomicParquetWriter(dst, output_schema(schema), {"fingerprint": "bench"})
+    q = AtomicParquetWriter(qdst, quarantine_schema(schema), {"fingerprint": "bench"})
+    reasons: dict[str, int] = {}
+    for b in iter_ingest(raw, "tracking", leap, batch_rows):
+        w.write(b.good)
+        q.write(b.quarantined)
+        _count_reasons(reasons, b.quarantined)
+    q.close()
+    w.close()
+    return {"rows_out": w.rows, "rows_q": q.rows}
+
+
 def timed(fn):
     t0 = time.perf_counter()
     out = fn()
@@ -298,17 +313,7 @@ def main() -> None:
             pq.write_table(pq.read_table(raw), d / "copy.parquet", compression="zstd")
 
         def ingest():
-            schema = pa.schema(list(pq.read_schema(raw)))
-            w = AtomicParquetWriter(d / "00-ingest.parquet", output_schema(schema), {"fingerprint": "bench"})
-            q = AtomicParquetWriter(d / "00-ingest.q.parquet", quarantine_schema(schema), {"fingerprint": "bench"})
-            reasons: dict[str, int] = {}
-            for b in iter_ingest(raw, "tracking", leap, args.batch_rows):
-                w.write(b.good)
-                q.write(b.quarantined)
-                _count_reasons(reasons, b.quarantined)
-            q.close()
-            w.close()
-            return {"rows_out": w.rows, "rows_q": q.rows}
+            return run_ingest(raw, d / "00-ingest.parquet", d / "00-ingest.q.parquet", leap, args.batch_rows)
 
         def load_models():  # what run planning does before any task runs
             cols = set()
