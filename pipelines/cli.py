@@ -9,6 +9,7 @@ import logging
 import os
 import secrets
 import sys
+import time
 from datetime import datetime, timezone
 import traceback
 from pathlib import Path
@@ -148,6 +149,19 @@ def run_config(config: str, base_dir: str | None = None, workers: int = 1, sched
     task = RunAll(config_path=str(cfg.path), config_sha256=cfg.sha256, base_dir=str(cfg.base_dir),
                   partitions=tuple(chosen.partitions), run_id=run_id)
     result = luigi.build([task], **kwargs) if chosen.partitions else None
+    summary = luigi_counts(result.summary_text if result is not None else "")
+    # A central scheduler gives each task to one worker, and luigi's worker stops as soon as what is left
+    # of this run is being run by another one (a second `relcorr run` of the same days): wait for those
+    # tasks and schedule again, so that this run too ends with its partitions complete or failed.
+    passes = 1
+    while scheduler_host and result is not None and luigi_counts(result.summary_text)["run_by_other_workers"]:
+        time.sleep(1.0)
+        result = luigi.build([task], **kwargs)
+        again = luigi_counts(result.summary_text)
+        summary["ran"] += again["ran"]
+        summary["failed"] += again["failed"]
+        passes += 1
+    summary["passes"] = passes
     if verbose:
         print(result.summary_text)
     # Judge by completeness, not by luigi's status (another worker may have run a task).
@@ -174,7 +188,7 @@ def run_config(config: str, base_dir: str | None = None, workers: int = 1, sched
         write_json_atomic(ppath, partition_manifest(manifest, entry))
         listed.append({"partition": entry["partition"], "path": str(ppath), "sha256": sha256_file(ppath)})
     manifest["partition_manifests"] = listed
-    manifest["run"]["luigi_summary"] = luigi_counts(result.summary_text if result is not None else "")
+    manifest["run"]["luigi_summary"] = summary
     path = folder / f"{run_id}.json"
     write_json_atomic(path, manifest)
     _print_summary(manifest)

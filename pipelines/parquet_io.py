@@ -3,14 +3,20 @@
 Every file relcorr writes goes to a temporary name beside its final path and
 is renamed into place only when complete, so a reader (or a resumed run)
 never sees half a file.  Temporary names start with ``.`` and contain
-``.tmp-``; ``clean_stray_temporaries`` removes those an interrupted run left.
+``.tmp-HOST-PID`` (the writer's machine and process); ``clean_stray_temporaries``
+removes those an interrupted run left, and never those of a writer still at work
+(another run computing the same step in the same folder).
 """
 from __future__ import annotations
 
 import contextlib
+import glob
 import hashlib
 import json
 import os
+import re
+import socket
+import time
 from pathlib import Path
 from typing import Any, Iterator
 
@@ -36,17 +42,51 @@ def canonical_json(obj: Any) -> str:
     return json.dumps(obj, sort_keys=True, separators=(",", ":"), ensure_ascii=True, allow_nan=False)
 
 
+_HOST = re.sub(r"[^A-Za-z0-9.-]", "_", socket.gethostname()) or "localhost"
+# a temporary of another machine (shared folder) whose writer cannot be asked: stray once unchanged this long
+STALE_TEMPORARY_S = 3600.0
+
+
 def _tmp_path(path: Path) -> Path:
-    return path.with_name(f".{path.name}.tmp-{os.getpid()}")
+    return path.with_name(f".{path.name}.tmp-{_HOST}-{os.getpid()}")
+
+
+def _process_running(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except (PermissionError, OverflowError, ValueError):
+        return pid > 0  # PermissionError: someone else's live process
+    return True
+
+
+def _is_stray(tmp: Path, prefix: str) -> bool:
+    """A temporary is stray when its writer is gone: this process (an earlier attempt), a process of this
+    machine that no longer runs, or (another machine, or a reused process id) unchanged for an hour.
+    ``.NAME.tmp-PID`` (no machine) is an older name of this machine's temporaries."""
+    host, _, pid = tmp.name[len(prefix):].rpartition("-")
+    if host in ("", _HOST) and pid.isdigit():
+        pid_n = int(pid)
+        if pid_n == os.getpid() or not _process_running(pid_n):
+            return True
+    try:
+        return time.time() - tmp.stat().st_mtime > STALE_TEMPORARY_S
+    except FileNotFoundError:
+        return False
 
 
 def clean_stray_temporaries(path: str | Path) -> None:
-    """Remove temporary files an interrupted writer of ``path`` left behind."""
+    """Remove temporary files an interrupted writer of ``path`` left behind, never one still being written
+    (two runs computing the same step in the same folder each write their own and rename it into place;
+    the bytes are the same)."""
     path = Path(path)
+    prefix = f".{path.name}.tmp-"
     if path.parent.is_dir():
-        for stray in path.parent.glob(f".{path.name}.tmp-*"):
-            with contextlib.suppress(FileNotFoundError):
-                stray.unlink()
+        for stray in path.parent.glob(f"{glob.escape(prefix)}*"):
+            if _is_stray(stray, prefix):
+                with contextlib.suppress(FileNotFoundError):
+                    stray.unlink()
 
 
 @contextlib.contextmanager

@@ -77,8 +77,7 @@ class _PartitionTask(luigi.Task):
     def run(self):
         step = self.step()
         fail = failure_path(step)
-        if fail.exists():
-            fail.unlink()
+        fail.unlink(missing_ok=True)  # another run of the same step may have removed it first
         for p in (step.output, step.quarantine, step.activity):
             clean_stray_temporaries(p)
         t0 = time.perf_counter()
