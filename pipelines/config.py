@@ -26,7 +26,7 @@ from pipelines.errors import ConfigError
 from pipelines.registry import RegistryError, discover
 from stages.base import Param, Stage
 
-RECORD_KINDS = ("tracking", "clock")
+RECORD_KINDS = ("tracking", "clock", "orientation")
 
 # Each table's keys: name -> Param (the same checker the stages use).
 PIPELINE_KEYS = {
@@ -59,8 +59,9 @@ MODELS_KEYS = {
 DEMO_KEYS = {
     p.name: p
     for p in (
-        Param("scenario", "str", "daily", "invented scenario: daily records, a probe's solar conjunction, or links in a constellation",
-              choices=("daily", "conjunction", "constellation")),
+        Param("scenario", "str", "daily", "invented scenario: daily records, a probe's solar conjunction, links in a constellation, "
+              "a gyroscope satellite, or laser ranging of an Earth satellite",
+              choices=("daily", "conjunction", "constellation", "gyroscope", "laser_ranging")),
         Param("seed", "int", 20261202, "random seed of the generated scenario", minimum=0),
         Param("records_per_partition", "int", 2000, "records in each generated raw file", minimum=10, maximum=10_000_000),
         Param("partitions", "int", 2, "number of generated raw files", minimum=1, maximum=366),

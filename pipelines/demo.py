@@ -56,12 +56,15 @@ def generate(cfg: Config) -> list[Path]:
     out.mkdir(parents=True, exist_ok=True)
     written = []
     scenario = demo.get("scenario")
-    if scenario in ("conjunction", "constellation"):
-        make = _conjunction_records if scenario == "conjunction" else _constellation_records
+    if scenario in ("conjunction", "constellation", "gyroscope", "laser_ranging"):
+        from pipelines import demo_orbits
+
+        make = {"conjunction": _conjunction_records, "constellation": _constellation_records,
+                "gyroscope": demo_orbits.gyroscope_records, "laser_ranging": demo_orbits.laser_ranging_records}[scenario]
         table = make(cfg, rng)
         if cfg.dated:  # an archive organised by UTC day: one file per day of the time tags
             return _write_by_day(table, out, Path(cfg.inputs[0]).name)
-        path = out / f"{scenario}-tracking.parquet"
+        path = out / f"{scenario}-{'orientation' if scenario == 'gyroscope' else 'tracking'}.parquet"
         pq.write_table(table, path.with_name(f".{path.name}.tmp"))
         path.with_name(f".{path.name}.tmp").replace(path)
         return [path]

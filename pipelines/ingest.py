@@ -190,6 +190,25 @@ def classify_batch(table: pa.Table, record_kind: str, leap: LeapTable, duplicate
             in_hz = _text_in(unit, ["Hz"])
             rc.mark("reference_frequency_invalid",
                     doppler & ((in_hz & ~(np.isfinite(f_ref) & (f_ref > 0))) | ~(np.isfinite(ratio) & (ratio > 0))))
+    elif record_kind == "orientation":
+        rc.mark("body_missing", _blank(table["body"]))
+        rc.mark("observable_unknown", ~_text_in(table["observable"], schemas.ORIENTATION_OBSERVABLES))
+        spin = _text_in(table["observable"], ["spin_axis"])
+        if spin.any():
+            def given(name):  # non-null (NaN counts as given: it is then invalid)
+                return np.asarray(pc.is_valid(_plain(table[name])).to_numpy(zero_copy_only=False), dtype=bool) \
+                    if name in table.column_names else np.zeros(n, dtype=bool)
+            has_vec = given("dir_x") & given("dir_y") & given("dir_z")
+            has_radec = given("ra_deg") & given("dec_deg")
+            rc.mark("direction_missing", spin & ~has_vec & ~has_radec)
+            vec = np.stack([_float(table[c]) if c in table.column_names else np.full(n, np.nan)
+                            for c in ("dir_x", "dir_y", "dir_z")], axis=1)
+            bad_vec = ~np.all(np.isfinite(vec), axis=1) | np.all(vec == 0.0, axis=1)
+            ra = _float(table["ra_deg"]) if "ra_deg" in table.column_names else np.full(n, np.nan)
+            dec = _float(table["dec_deg"]) if "dec_deg" in table.column_names else np.full(n, np.nan)
+            bad_radec = ~(np.isfinite(ra) & np.isfinite(dec) & (np.abs(dec) <= 90.0))
+            usable = (has_vec & ~bad_vec) | (has_radec & ~bad_radec)  # the vector first, else RA/Dec
+            rc.mark("direction_invalid", spin & (has_vec | has_radec) & ~usable)
     else:
         rc.mark("clock_missing", _blank(table["remote_clock"]) | _blank(table["reference_clock"]))
         rc.mark("observable_unknown", ~_text_in(table["observable"], schemas.CLOCK_OBSERVABLES))
@@ -201,8 +220,9 @@ def classify_batch(table: pa.Table, record_kind: str, leap: LeapTable, duplicate
             bad_tau = np.ones(n, dtype=bool)
         rc.mark("averaging_invalid", is_freq & bad_tau)
 
-    value = _float(table["value"])
-    rc.mark("value_not_finite", ~np.isfinite(value))
+    value = _float(table["value"]) if "value" in table.column_names else np.full(n, np.nan)  # optional: orientation
+    needs_value = ~_text_in(table["observable"], ["spin_axis"]) if record_kind == "orientation" else np.ones(n, dtype=bool)
+    rc.mark("value_not_finite", needs_value & ~np.isfinite(value))
     sigma = _float(table["uncertainty"])
     rc.mark("uncertainty_invalid", ~(np.isfinite(sigma) & (sigma >= 0)))
     return rc, mjd, sod_ps
@@ -255,7 +275,7 @@ def iter_ingest(path: str | Path, record_kind: str, leap: LeapTable, batch_rows:
             any_bad = bool(bad.any())
             out = table.filter(pa.array(good)) if any_bad else table
             for name in ("value", "uncertainty"):
-                if out.schema.field(name).type != pa.float64():
+                if name in out.column_names and out.schema.field(name).type != pa.float64():
                     out = out.set_column(out.schema.get_field_index(name), name, pc.cast(out[name], pa.float64()))
             out = out.append_column(_field("utc_mjd"), pa.array(mjd[good], pa.int32()))
             out = out.append_column(_field("utc_sod_ps"), pa.array(sod_ps[good], pa.int64()))

@@ -1,4 +1,4 @@
-"""Raw record schemas (tracking and clock) and the columns ingest adds.
+"""Raw record schemas (tracking, clock and orientation) and the columns ingest adds.
 
 The names are relcorr's own; README.md, "Record schemas", documents them.
 A raw file may carry extra columns: they are kept untouched.
@@ -47,7 +47,21 @@ CLOCK = (
     RawColumn("averaging_s", "number", False, "s", "averaging interval of fractional_frequency records (> 0)"),
 )
 
-SCHEMAS = {"tracking": TRACKING, "clock": CLOCK}
+ORIENTATION = (
+    RawColumn("record_id", "id", True, "", "unique identifier of the record (string or integer)"),
+    RawColumn("body", "text", True, "", "the orbiting body (gyroscope carrier, satellite) named in the orbit catalogue"),
+    RawColumn("time_tag", "time", True, "UTC", "measurement epoch, UTC (Arrow timestamp or ISO 8601 string)"),
+    RawColumn("observable", "text", True, "", "spin_axis (direction of a gyroscope's spin, GCRS), node_angle (right ascension of the ascending node, deg) or perigee_angle (argument of perigee, deg)"),
+    RawColumn("uncertainty", "number", True, "deg", "one-sigma uncertainty (>= 0): of the angle, or the angular uncertainty of the spin direction, degrees"),
+    RawColumn("dir_x", "number", False, "1", "spin_axis: direction, GCRS X component (a unit vector with dir_y, dir_z)"),
+    RawColumn("dir_y", "number", False, "1", "spin_axis: direction, GCRS Y component"),
+    RawColumn("dir_z", "number", False, "1", "spin_axis: direction, GCRS Z component"),
+    RawColumn("ra_deg", "number", False, "deg", "spin_axis: right ascension of the direction (GCRS), used when dir_x/y/z are absent or null"),
+    RawColumn("dec_deg", "number", False, "deg", "spin_axis: declination of the direction (GCRS), -90..90"),
+    RawColumn("value", "number", False, "deg", "node_angle / perigee_angle: observed angle in degrees (required for them)"),
+)
+
+SCHEMAS = {"tracking": TRACKING, "clock": CLOCK, "orientation": ORIENTATION}
 
 # observable -> allowed units
 TRACKING_OBSERVABLES = {
@@ -65,6 +79,7 @@ TRACKING_OBSERVABLES = {
 #: observable types whose receiving end is a spacecraft, not a ground station
 LINK_OBSERVABLES = ("link_range_one_way", "link_range_two_way")
 CLOCK_OBSERVABLES = ("time_offset", "fractional_frequency", "two_way_fractional_frequency")
+ORIENTATION_OBSERVABLES = ("spin_axis", "node_angle", "perigee_angle")
 
 # the columns ingest adds to every record
 INGEST_COLUMNS = (
@@ -94,6 +109,9 @@ INGEST_REASONS = {
     "averaging_invalid": "fractional-frequency (or two-way) record without a positive finite averaging interval",
     "count_interval_invalid": "Doppler record without a positive, finite count interval count_s",
     "reference_frequency_invalid": "Doppler record in Hz without a positive, finite reference_frequency_hz, or with a non-positive or non-finite turnaround_ratio",
+    "body_missing": "orientation record whose body is null or empty",
+    "direction_missing": "spin_axis record with neither all of dir_x, dir_y, dir_z nor both ra_deg and dec_deg",
+    "direction_invalid": "spin_axis direction with a NaN or infinite component, the zero vector, or a declination outside -90..90 deg",
 }
 DOPPLER_OBSERVABLES = ("doppler_one_way", "doppler_two_way", "doppler_three_way")
 

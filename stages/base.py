@@ -109,7 +109,7 @@ class StageContext:
     """Read-only facts a stage may use besides its own parameters.
 
     ``models`` holds the shared model choices of the run (the ``[models]``
-    table of the config, resolved); ``record_kind`` is "tracking" or "clock";
+    table of the config, resolved); ``record_kind`` is "tracking", "clock" or "orientation";
     ``columns`` lets a stage decide, before it runs, whether optional inputs
     will be there (e.g. a station position).
     """

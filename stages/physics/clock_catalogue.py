@@ -37,7 +37,7 @@ from pathlib import Path
 
 import numpy as np
 
-from stages.physics.catalogue_file import read_catalogue
+from stages.physics.catalogue_file import name_index, read_catalogue
 
 FORMAT = "relcorr-clocks/1"
 MJD_OF_ORDINAL_ZERO = -678576
@@ -66,17 +66,7 @@ class ClockCatalogue:
 
     def index(self, names) -> np.ndarray:
         """Catalogue index of each name, -1 where unknown or null (an Arrow column, or a sequence of str)."""
-        import pyarrow as pa
-        import pyarrow.compute as pc
-
-        if isinstance(names, pa.ChunkedArray):
-            names = names.combine_chunks()
-        if not isinstance(names, pa.Array):
-            names = pa.array(list(names), pa.string())
-        if pa.types.is_dictionary(names.type):
-            names = names.dictionary_decode()
-        idx = pc.index_in(names, value_set=pa.array(list(self.codes), pa.string()))
-        return np.asarray(pc.fill_null(idx, -1).to_numpy(zero_copy_only=False), dtype=np.int64)
+        return name_index(self.codes, names)
 
 
 def _number(path, key, value, lo=None, hi=None):
