@@ -187,3 +187,20 @@ def test_a_scheduler_on_another_machine_is_an_explicit_opt_in(archive, capsys):
     code = main(["run", str(archive / "nightly.toml"), "--date", DAYS[0], "--scheduler-host", "10.1.2.3"])
     assert code == EXIT_CONFIG
     assert "--allow-remote-scheduler" in capsys.readouterr().err
+
+
+def test_verify_a_run_over_some_days_of_the_archive(archive, capsys):
+    # the product folder holds the current products of every day run so far; a run over one day
+    # verifies (the other days' stable names are not "unexpected"), and a stray regular file still is
+    assert main(["run", str(archive / "nightly.toml"), "--date", DAYS[1]]) == EXIT_OK
+    manifest = sorted((archive / "products" / "manifests").glob("*.json"))[-1]
+    assert len(list((archive / "products").glob("conjunction-*.parquet"))) > 2
+    capsys.readouterr()
+    assert main(["verify", str(manifest)]) == EXIT_OK
+    stray = archive / "products" / "conjunction-2024-06-30.parquet"
+    shutil.copy(archive / "products" / f"conjunction-{DAYS[0]}.parquet", stray)  # a regular file, not a link
+    try:
+        assert main(["verify", str(manifest)]) != EXIT_OK
+        assert str(stray) in capsys.readouterr().out
+    finally:
+        stray.unlink()
