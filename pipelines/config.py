@@ -126,9 +126,13 @@ class Config:
             "stages": [{"use": s.name, **s.params} for s in self.stages],
         }
 
+    #: partition id of each input file (the file's stem; for a {date} template whose file names do not
+    #: hold the date, e.g. a dataset partitioned by date=YYYY-MM-DD folders, "<date>-<stem>")
+    input_ids: dict[Path, str] = field(default_factory=dict)
+
     def partitions(self) -> list[tuple[str, Path]]:
         """(partition id, input file) pairs, sorted by id."""
-        return [(partition_id(p), p) for p in self.input_files]
+        return sorted(((self.input_ids.get(p) or partition_id(p), p) for p in self.input_files), key=lambda x: x[0])
 
 
 def partition_id(path: Path) -> str:
@@ -343,12 +347,17 @@ def resolve_inputs(cfg: Config, require: bool = True) -> None:
     # same file through two patterns: once
     unique = sorted({p.resolve(): p for p in files}.values(), key=lambda p: (p.name, str(p)))
     ids: dict[str, Path] = {}
+    names: dict[Path, str] = {}
     for p in unique:
         pid = partition_id(p)
+        if p in dates and dates[p] not in pid:
+            pid = f"{dates[p]}-{pid}"
+        names[p] = pid
         if pid in ids:
             problems.append((str(cfg.path), "pipeline.inputs", f"two inputs share the partition name {pid!r}: {ids[pid]} and {p}; rename one"))
         ids[pid] = p
     if problems:
         raise ConfigError(problems)
     cfg.input_files = unique
-    cfg.input_dates = {partition_id(p): dates[p] for p in unique if p in dates}
+    cfg.input_ids = names
+    cfg.input_dates = {names[p]: dates[p] for p in unique if p in dates}

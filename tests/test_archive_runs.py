@@ -204,3 +204,23 @@ def test_verify_a_run_over_some_days_of_the_archive(archive, capsys):
         assert str(stray) in capsys.readouterr().out
     finally:
         stray.unlink()
+
+
+def test_a_dataset_partitioned_by_date_folders(archive, tmp_path):
+    # raw/date=YYYY-MM-DD/part-0.parquet: the file names do not hold the date, so each partition is
+    # named "<date>-part-0"; the records are those of the nightly archive's days
+    base = _setup(tmp_path, "nightly.toml")
+    for d in DAYS[:2]:
+        (base / "ds" / f"date={d}").mkdir(parents=True)
+        shutil.copy(archive / "raw" / f"conjunction-{d}.parquet", base / "ds" / f"date={d}" / "part-0.parquet")
+    cfg = (base / "nightly.toml").read_text().replace('inputs = ["raw/conjunction-{date}.parquet"]',
+                                                      'inputs = ["ds/date={date}/*.parquet"]')
+    assert "ds/date={date}" in cfg
+    (base / "nightly.toml").write_text(cfg)
+    assert main(["run", str(base / "nightly.toml"), "--from", DAYS[0], "--to", DAYS[1]]) == EXIT_OK
+    m = _manifest(base / "products")
+    assert [p["partition"] for p in m["partitions"]] == [f"{d}-part-0" for d in DAYS[:2]]
+    for d in DAYS[:2]:
+        ours = pq.read_table(base / "products" / f"{d}-part-0.parquet", columns=["record_id", "computed_value"])
+        ref = pq.read_table(archive / "products" / f"conjunction-{d}.parquet", columns=["record_id"])
+        assert sorted(ours["record_id"].to_pylist()) == sorted(ref["record_id"].to_pylist())
