@@ -43,7 +43,7 @@ from stages.base import Column, Reference, Stage, StageContext, StageResult
 from stages.common import light_time_model as ltm
 from stages.physics import doppler as dp
 from stages.physics import light_time as lt
-from stages.physics.barycentric import station_state, tdb_from_tt, times_from_tdb
+from stages.physics.barycentric import station_offset_m, station_state, tdb_from_tt, times_from_tdb
 from stages.physics.ephemeris import GM_M3_PER_S2
 from stages.physics.ephemeris_grid import load_gridded_ephemeris
 from stages.physics.leap_seconds import load_leap_table
@@ -187,6 +187,25 @@ class Doppler(Stage):
                 return st.bcrs.pos_m, st.bcrs.vel_m_per_s
             return state
 
+        # displacements over the count formed without large positions (doppler.py eq. (5) floor)
+        def station_disp(site):
+            def offset(mjd, sod):
+                utc_m, utc_s, t_m, t_s, _ = times_from_tdb(mjd, sod, site, leap, grid)
+                return station_offset_m(site, utc_m, utc_s, t_m, t_s, mjd, sod, eph, grid)
+
+            def disp(ma, sa, mb, sb):
+                return eph.displacement_m("earth", ma, sa, mb, sb) + (offset(mb, sb) - offset(ma, sa))
+            return disp
+
+        def spacecraft_disp(name):
+            def disp(ma, sa, mb, sb):
+                if states is not None and name in states:
+                    d, _ = states.displacement_centre_m(name, ma, sa, mb, sb, params["max_gap_s"])
+                    centre = states.centre(name)
+                    return d if centre == "ssb" else d + eph.displacement_m(centre, ma, sa, mb, sb)
+                return eph.displacement_m(name, ma, sa, mb, sb)  # a body of the planetary ephemeris
+            return disp
+
         for kind, mask in kinds.items():
             for tc in np.unique(tcode[mask & work]):  # a loop over (kind, target) groups, not records
                 idx = np.flatnonzero(mask & work & (tcode == tc))
@@ -205,7 +224,9 @@ class Doppler(Stage):
                 body_fn = lt.LinearisedBodyStates(eph)
                 if kind == "two":
                     sol = dp.two_way_doppler(e_m, e_s, c, rx_fn, sc_fn, station_fn(tx_site), body_fn, GM_M3_PER_S2,
-                                             t_start=(s_m, s_s), **opts)
+                                             t_start=(s_m, s_s), **opts,
+                                             displacements=(station_disp(rx_site), spacecraft_disp(tgt),
+                                                            station_disp(tx_site)))
                     d1e = times_from_tdb(sol.end.t1_mjd, sol.end.t1_sod_s, tx_site, leap, grid)[4]
                     d1s = times_from_tdb(sol.start.t1_mjd, sol.start.t1_sod_s, tx_site, leap, grid)[4]
                     clock = ((d3e - d3s) - (d1e - d1s)) / c
@@ -215,7 +236,8 @@ class Doppler(Stage):
                     osc_total = np.zeros(idx.size)
                 else:
                     sol = dp.one_way_doppler(e_m, e_s, c, rx_fn, sc_fn, body_fn, GM_M3_PER_S2,
-                                             t_start=(s_m, s_s), **opts)
+                                             t_start=(s_m, s_s), **opts,
+                                             displacements=(station_disp(rx_site), spacecraft_disp(tgt)))
                     clock = (d3e - d3s) / c
                     downs = (sol.end, sol.start)
                     far = [(sol.end.t_tx_mjd, sol.end.t_tx_sod_s), (sol.start.t_tx_mjd, sol.start.t_tx_sod_s)]

@@ -144,6 +144,42 @@ def test_two_way_closed_form_noise_floor(count_s):
     assert rms < 0.6 * rms_naive
 
 
+def linear_displacement(v):
+    """p(b) - p(a) of straight-line motion, formed from the velocity (no large positions)."""
+    def fn(mjd_a, sod_a, mjd_b, sod_b):
+        dt = (np.asarray(mjd_b) - np.asarray(mjd_a)) * 86400.0 + (np.asarray(sod_b) - np.asarray(sod_a))
+        return dt[:, None] * v
+    return fn
+
+
+@pytest.mark.parametrize("one_way", [False, True])
+def test_displacements_remove_the_input_rounding_floor(one_way):
+    # The closed form of the test above (Moyer 2000 sec. 13, from memory; longdouble reference), same
+    # barycentric positions of 1.5e11..6e11 m, but the ends' displacements over the count passed in as
+    # the ephemerides give them (node-relative interpolation, here v dt): the geometric difference no
+    # longer carries the positions' float64 rounding.  Target of the issue: below 1e-15 for 60 s counts.
+    n, count_s = 400, 60.0
+    t_ref, st_p, st_v, sc_p, sc_v, mjd, sod = _straight_case(3, n, AU_M)
+    st, sc = linear(st_p, st_v, *t_ref), linear(sc_p, sc_v, *t_ref)
+    disp = (linear_displacement(st_v), linear_displacement(sc_v), linear_displacement(st_v))
+    t3 = (mjd - t_ref[0]).astype(LD) * 86400 + (sod.astype(LD) - LD(t_ref[1]))
+    args = [x.astype(LD) for x in (sc_p, sc_v, st_p, st_v)]
+    if one_way:
+        sol = dp.one_way_doppler(mjd, sod, count_s, st, sc, no_bodies, {}, bodies=(), displacements=disp)
+        plain = dp.one_way_doppler(mjd, sod, count_s, st, sc, no_bodies, {}, bodies=())
+        ref = -(round_trip_ld(t3, *args)[1] - round_trip_ld(t3 - LD(count_s), *args)[1]) / LD(count_s)
+    else:
+        sol = dp.two_way_doppler(mjd, sod, count_s, st, sc, st, no_bodies, {}, bodies=(), displacements=disp)
+        plain = dp.two_way_doppler(mjd, sod, count_s, st, sc, st, no_bodies, {}, bodies=())
+        ref = -(round_trip_ld(t3, *args)[0] - round_trip_ld(t3 - LD(count_s), *args)[0]) / LD(count_s)
+    err = (sol.y - ref).astype(np.float64)
+    err_plain = (plain.y - ref).astype(np.float64)
+    rms, rms_plain = np.sqrt(np.mean(err**2)), np.sqrt(np.mean(err_plain**2))
+    print(f"one_way={one_way}: rms {rms:.3g} max {np.abs(err).max():.3g} (positions differenced: rms {rms_plain:.3g})")
+    assert rms < 1e-16 and np.abs(err).max() < 1e-15   # the issue's target, with an order of margin
+    assert rms < 0.2 * rms_plain
+
+
 def test_closed_form_small_coordinates_reaches_1e16():
     # Same closed form (Moyer 2000 sec. 13, from memory), but all positions
     # within ~1e9 m of the origin (e.g. coordinates centred near the link):

@@ -361,3 +361,36 @@ def test_missing_column_and_unreadable(tmp_path):
     (tmp_path / "junk.parquet").write_bytes(b"not parquet")
     with pytest.raises(ValueError, match="junk.parquet: cannot read as Parquet"):
         load_state_table(tmp_path / "junk.parquet")
+
+
+def test_displacement_is_the_integral_of_the_interpolated_velocity():
+    # Eq. (2)'s velocity is the derivative of the Hermite cubic (1): over a span inside one interval,
+    # Simpson's rule of it gives p(b) - p(a) exactly (Abramowitz & Stegun 25.4.5), here at 2 au from the
+    # barycentre where two absolute positions round to ~6e-5 m.  displacement_centre_m forms it from the
+    # node differences; also across a node (the span then sums two intervals' Simpson integrals).
+    from stages.physics.spacecraft_ephemeris import StateTable
+
+    t = np.arange(0, 86400, 3600.0)
+    r, w = 2 * 1.495978707e11, 2 * np.pi / (3.0 * 365.25 * 86400)
+    pos = np.column_stack([r * np.cos(w * t), r * np.sin(w * t), 1e9 * np.sin(3 * w * t)])
+    vel = np.column_stack([-r * w * np.sin(w * t), r * w * np.cos(w * t), 3e9 * w * np.cos(3 * w * t)])
+    tab = StateTable.from_arrow(pa.table({
+        "target": ["X"] * t.size, "tdb_mjd": pa.array(np.full(t.size, 60000), pa.int32()), "tdb_sod_s": t,
+        "x_m": pos[:, 0], "y_m": pos[:, 1], "z_m": pos[:, 2],
+        "vx_m_per_s": vel[:, 0], "vy_m_per_s": vel[:, 1], "vz_m_per_s": vel[:, 2], "centre": ["ssb"] * t.size}))
+    m = np.full(3, 60000)
+    a = np.array([100.0, 7000.0, 3590.0])
+    b = np.array([160.0, 7060.0, 3650.0])   # the last span crosses the node at 3600 s
+    d, status = tab.displacement_centre_m("X", m, a, m, b, 7200.0)
+    assert (status == 0).all()
+
+    def simpson(x, y):
+        v = [tab.posvel_centre_m("X", m[:1], np.array([s]), 7200.0)[1][0] for s in (x, 0.5 * (x + y), y)]
+        return (y - x) * (v[0] + 4 * v[1] + v[2]) / 6
+
+    ref = np.array([simpson(a[0], b[0]), simpson(a[1], b[1]), simpson(a[2], 3600.0) + simpson(3600.0, b[2])])
+    plain = tab.posvel_centre_m("X", m, b, 7200.0)[0] - tab.posvel_centre_m("X", m, a, 7200.0)[0]
+    print("node-relative", np.abs(d - ref).max(), "plain", np.abs(plain - ref).max())
+    # the h (H10 v0 + H11 v1) terms are ~1e8 m (ulp 1.5e-8 m): 1e-7 m is 5e-18 in a 60 s Doppler
+    assert np.abs(d - ref).max() < 1e-7
+    assert np.abs(plain - ref).max() > 100 * np.abs(d - ref).max()

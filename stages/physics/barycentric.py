@@ -45,6 +45,19 @@ def station_state(x_itrs_m, utc_mjd, utc_sod_s, tt_mjd, tt_sod_s, tdb_mjd, tdb_s
     return StationState(gcrs, bcrs)
 
 
+def station_offset_m(x_itrs_m, utc_mjd, utc_sod_s, tt_mjd, tt_sod_s, tdb_mjd, tdb_sod_s,
+                     planetary: PlanetaryEphemeris, grid_step_s: float = 3600.0) -> np.ndarray:
+    """x_BCRS - x_E of a station, (n, 3) m: ``station_state`` without the Earth's barycentric position,
+    (1 - U_ext/c^2 - L_C) X - (v_E.X) v_E/(2 c^2) at the station's ~6e6 m scale.  With a displacement
+    of the Earth it gives the station's barycentric displacement between two events without forming
+    two positions of ~1.5e11 m (whose float64 rounding, 3e-5 m, would dominate a Doppler count)."""
+    gcrs = itrs_to_gcrs(x_itrs_m, utc_mjd, utc_sod_s, tt_mjd, tt_sod_s, grid_step_s=grid_step_s)
+    earth_pos, earth_vel = planetary.posvel_m("earth", tdb_mjd, tdb_sod_s)
+    bodies = [(planetary.posvel_m(b, tdb_mjd, tdb_sod_s)[0], GM_M3_PER_S2[b]) for b in EXTERNAL_BODIES]
+    u_ext = external_potential_at_geocentre(earth_pos, bodies)
+    return gcrs_to_bcrs(gcrs.pos_m, gcrs.vel_m_per_s, np.zeros_like(earth_pos), earth_vel, u_ext).pos_m
+
+
 def tai_to_utc(tai_mjd, tai_sod_s, leap: LeapTable):
     """TAI -> UTC (MJD, seconds of day); inside a leap second the seconds of day reach 86400..86401.
 

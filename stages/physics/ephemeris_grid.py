@@ -51,6 +51,18 @@ class GriddedEphemeris:
         return self.exact.posvel_m(body, GRID_EPOCH_MJD + day, sod)
 
     def posvel_m(self, body: str, tdb_mjd, tdb_sod_s):
+        node, offset, vel = self._parts(body, tdb_mjd, tdb_sod_s)
+        return node + offset, vel
+
+    def displacement_m(self, body: str, mjd_a, sod_a, mjd_b, sod_b):
+        """p(b) - p(a) as (p_kb - p_ka) + offset_b - offset_a, never forming the two large positions
+        (their difference would carry their float64 rounding, ~3e-5 m at 1 au)."""
+        node_a, off_a, _ = self._parts(body, mjd_a, sod_a)
+        node_b, off_b, _ = self._parts(body, mjd_b, sod_b)
+        return (node_b - node_a) + (off_b - off_a)
+
+    def _parts(self, body: str, tdb_mjd, tdb_sod_s):
+        """(node position p_k, position relative to it, velocity) of each instant (NaN outside the span)."""
         mjd, sod = np.broadcast_arrays(np.asarray(tdb_mjd), np.asarray(tdb_sod_s, dtype=float))
         mjd, sod = mjd.ravel().astype(np.int64), sod.ravel()
         ok = self.exact.in_span(mjd, sod) & np.isfinite(sod)
@@ -60,7 +72,7 @@ class GriddedEphemeris:
         k = (mjd - GRID_EPOCH_MJD) * self.per_day + j.astype(np.int64)
         s = (sod - j * self.step_s) / self.step_s
         if k.size == 0:
-            return np.zeros((0, 3)), np.zeros((0, 3))
+            return np.zeros((0, 3)), np.zeros((0, 3)), np.zeros((0, 3))
         k_lo, k_hi = int(k.min()), int(k.max()) + 1
         if k_hi - k_lo <= 2 * k.size + 1024:
             # records crowd into a short span (the usual batch): take every node of the span, no sort
@@ -79,12 +91,14 @@ class GriddedEphemeris:
         coef = np.stack([p_n[:-1], hv0, 3.0 * dp - 2.0 * hv0 - hv1, -2.0 * dp + hv0 + hv1], axis=1)
         c = coef[i0]
         s_ = s[:, None]
-        pos = c[:, 0] + s_ * (c[:, 1] + s_ * (c[:, 2] + s_ * c[:, 3]))
+        node = c[:, 0]
+        offset = s_ * (c[:, 1] + s_ * (c[:, 2] + s_ * c[:, 3]))
         vel = (c[:, 1] + s_ * (2.0 * c[:, 2] + 3.0 * s_ * c[:, 3])) / h
         if not ok.all():
-            pos[~ok] = np.nan
+            node = node.copy()
+            node[~ok] = np.nan
             vel[~ok] = np.nan
-        return pos, vel
+        return node, offset, vel
 
 
 @functools.lru_cache(maxsize=2)
