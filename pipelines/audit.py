@@ -203,8 +203,11 @@ def _models(models: dict[str, Any]) -> str:
     for role, ident in (models or {}).items():
         if isinstance(ident, dict):
             ver = ident.get("version") or ident.get("package_version")
-            out.append(f"{role}: {ident.get('file') or ident.get('name') or '?'}"
-                       + (f" {ver}" if ver else "") + (f" (sha256 {str(ident.get('sha256'))[:16]})" if ident.get("sha256") else ""))
+            sha = ident.get("sha256") or ident.get("values_sha256")
+            span = ident.get("span_mjd")  # an identity of the values a partition's days use (EOP)
+            out.append(f"{role}: {ident.get('file') or ident.get('name') or ident.get('source') or '?'}"
+                       + (f" {ver}" if ver else "") + (f" values of MJD {span[0]}..{span[1]}" if span else "")
+                       + (f" (sha256 {str(sha)[:16]})" if sha else ""))
         else:
             out.append(f"{role}: {ident!r}")
     return "; ".join(out) or "-"
