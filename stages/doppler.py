@@ -43,18 +43,16 @@ from stages.base import Column, Reference, Stage, StageContext, StageResult
 from stages.common import light_time_model as ltm
 from stages.physics import doppler as dp
 from stages.physics import light_time as lt
-from stages.physics.barycentric import station_offset_m, station_state, tdb_from_tt, times_from_tdb
+from stages.physics.barycentric import tdb_from_tt, times_from_tdb
 from stages.physics.ephemeris import GM_M3_PER_S2
 from stages.physics.ephemeris_grid import load_gridded_ephemeris
 from stages.physics.leap_seconds import load_leap_table
 from stages.physics.time_scales import add_seconds
-from stages.physics.spacecraft_ephemeris import (STATUS_IN_GAP, STATUS_OUTSIDE_COVERAGE, STATUS_UNKNOWN_TARGET,
-                                                 target_posvel_bcrs_m)
+from stages.physics.spacecraft_ephemeris import target_posvel_bcrs_m
 
 DOPPLER_BODIES = ltm.LIGHT_TIME_BODIES
 OSCILLATOR_TERMS = ("gravitational", "j2", "velocity", "scale")
 _XYZ = ("x", "y", "z")
-DOP_OK, DOP_NOT_CONVERGED, DOP_INVALID = 0, 1, 2
 
 
 def _f64(name, unit, text):
@@ -144,7 +142,7 @@ class Doppler(Stage):
         names = set(table.column_names)
 
         def equal(name, value):
-            return np.asarray(pc.fill_null(pc.equal(table[name], value), False).to_numpy(zero_copy_only=False), dtype=bool)
+            return ltm.text_equals(table, name, value)
 
         def number(name, default):
             if name not in names:
@@ -174,59 +172,29 @@ class Doppler(Stage):
         target_status = np.zeros(n, dtype=np.uint8)
         gap_crossed = np.zeros(n, dtype=bool)
 
-        def codes(name):
-            enc = pc.dictionary_encode(pc.fill_null(table[name], "")).combine_chunks()
-            return np.asarray(enc.indices.to_numpy(zero_copy_only=False)), enc.dictionary.to_pylist()
-
-        tcode, tnames = codes("target")
-
-        def station_fn(site):
-            def state(mjd, sod):
-                utc_m, utc_s, t_m, t_s, _ = times_from_tdb(mjd, sod, site, leap, grid)
-                st = station_state(site, utc_m, utc_s, t_m, t_s, mjd, sod, eph, grid)
-                return st.bcrs.pos_m, st.bcrs.vel_m_per_s
-            return state
-
-        # displacements over the count formed without large positions (doppler.py eq. (5) floor)
-        def station_disp(site):
-            def offset(mjd, sod):
-                utc_m, utc_s, t_m, t_s, _ = times_from_tdb(mjd, sod, site, leap, grid)
-                return station_offset_m(site, utc_m, utc_s, t_m, t_s, mjd, sod, eph, grid)
-
-            def disp(ma, sa, mb, sb):
-                return eph.displacement_m("earth", ma, sa, mb, sb) + (offset(mb, sb) - offset(ma, sa))
-            return disp
-
-        def spacecraft_disp(name):
-            def disp(ma, sa, mb, sb):
-                if states is not None and name in states:
-                    d, _ = states.displacement_centre_m(name, ma, sa, mb, sb, params["max_gap_s"])
-                    centre = states.centre(name)
-                    return d if centre == "ssb" else d + eph.displacement_m(centre, ma, sa, mb, sb)
-                return eph.displacement_m(name, ma, sa, mb, sb)  # a body of the planetary ephemeris
-            return disp
+        tcode, tnames = ltm.text_codes(table, "target")
 
         for kind, mask in kinds.items():
             for tc in np.unique(tcode[mask & work]):  # a loop over (kind, target) groups, not records
                 idx = np.flatnonzero(mask & work & (tcode == tc))
                 tgt = tnames[tc]
 
-                def sc_fn(mjd, sod, _t=tgt):
-                    p, v, _ = target_posvel_bcrs_m(_t, mjd, sod, eph, params["max_gap_s"], states)
-                    return p, v
+                sc_fn = ltm.spacecraft_state_fn(tgt, eph, params, states)
 
                 rx_site, tx_site, c = rx_itrs[idx], tx_itrs[idx], count[idx]
                 # both ends of the count at the receiver: TT from the station clock, then TDB at the station
                 e_m, e_s, d3e = tdb_from_tt(tt_mjd[idx], tt_sod[idx], rx_site, leap, grid)
                 s_tt_m, s_tt_s = add_seconds(tt_mjd[idx], tt_sod[idx], -c)
                 s_m, s_s, d3s = tdb_from_tt(s_tt_m, s_tt_s, rx_site, leap, grid)
-                rx_fn = station_fn(rx_site)
+                # the stations remember their states at the ends of the count for the displacements over it
+                rx_fn = ltm.StationStates(rx_site, eph, leap, grid)
+                sc_disp = ltm.spacecraft_displacement_fn(tgt, eph, params, states)
                 body_fn = lt.LinearisedBodyStates(eph)
                 if kind == "two":
-                    sol = dp.two_way_doppler(e_m, e_s, c, rx_fn, sc_fn, station_fn(tx_site), body_fn, GM_M3_PER_S2,
+                    tx_fn = ltm.StationStates(tx_site, eph, leap, grid)
+                    sol = dp.two_way_doppler(e_m, e_s, c, rx_fn, sc_fn, tx_fn, body_fn, GM_M3_PER_S2,
                                              t_start=(s_m, s_s), **opts,
-                                             displacements=(station_disp(rx_site), spacecraft_disp(tgt),
-                                                            station_disp(tx_site)))
+                                             displacements=(rx_fn.displacement_m, sc_disp, tx_fn.displacement_m))
                     d1e = times_from_tdb(sol.end.t1_mjd, sol.end.t1_sod_s, tx_site, leap, grid)[4]
                     d1s = times_from_tdb(sol.start.t1_mjd, sol.start.t1_sod_s, tx_site, leap, grid)[4]
                     clock = ((d3e - d3s) - (d1e - d1s)) / c
@@ -237,7 +205,7 @@ class Doppler(Stage):
                 else:
                     sol = dp.one_way_doppler(e_m, e_s, c, rx_fn, sc_fn, body_fn, GM_M3_PER_S2,
                                              t_start=(s_m, s_s), **opts,
-                                             displacements=(station_disp(rx_site), spacecraft_disp(tgt)))
+                                             displacements=(rx_fn.displacement_m, sc_disp))
                     clock = (d3e - d3s) / c
                     downs = (sol.end, sol.start)
                     far = [(sol.end.t_tx_mjd, sol.end.t_tx_sod_s), (sol.start.t_tx_mjd, sol.start.t_tx_sod_s)]
@@ -282,19 +250,13 @@ class Doppler(Stage):
                     gap_crossed[idx] = ok & cross
 
         out["dop_start_tdb_mjd"] = pa.array(out["dop_start_tdb_mjd"], pa.int32(), mask=~work)
-        out["dop_status"] = np.where(work, out["dop_status"], np.where(is_dop, DOP_INVALID, DOP_OK)).astype(np.uint8)
-        solved = work
-        quarantine = {
+        out["dop_status"] = np.where(work, out["dop_status"], np.where(is_dop, ltm.INVALID, ltm.SOLVED)).astype(np.uint8)
+        tq = ltm.target_quarantine(work, target_status, out["dop_status"])
+        quarantine = {  # in this order: the first reason that applies is the record's
             "count_interval_invalid": bad_count,
             "reference_frequency_invalid": bad_freq,
-            "target_unknown": solved & (target_status == STATUS_UNKNOWN_TARGET),
-            "target_outside_coverage": solved & (target_status == STATUS_OUTSIDE_COVERAGE),
-            "target_in_gap": solved & (target_status == STATUS_IN_GAP),
-            "count_crosses_gap": solved & gap_crossed,
-            "light_time_not_converged": solved & (target_status == 0) & (out["dop_status"] == DOP_NOT_CONVERGED),
-            "light_time_invalid": solved & (target_status == 0) & (out["dop_status"] == DOP_INVALID),
+            **{k: tq[k] for k in ("target_unknown", "target_outside_coverage", "target_in_gap")},
+            "count_crosses_gap": work & gap_crossed,
+            **{k: tq[k] for k in ("light_time_not_converged", "light_time_invalid")},
         }
         return StageResult(columns=out, touched=is_dop, quarantine=quarantine)
-
-
-assert lt.STATUS_INVALID == DOP_INVALID and lt.STATUS_NOT_CONVERGED == DOP_NOT_CONVERGED

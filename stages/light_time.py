@@ -39,24 +39,21 @@ from typing import Any, Mapping
 
 import numpy as np
 import pyarrow as pa
-import pyarrow.compute as pc
 
 from stages.base import Column, Reference, Stage, StageContext, StageResult
 from stages.common import light_time_model as ltm
 from stages.physics import light_time as lt
-from stages.physics.barycentric import station_state, times_from_tdb
+from stages.physics.barycentric import times_from_tdb
 from stages.physics.constants import C_M_PER_S
 from stages.physics.ephemeris_grid import load_gridded_ephemeris
 from stages.physics.ephemeris import GM_M3_PER_S2
 from stages.physics.leap_seconds import load_leap_table
-from stages.physics.spacecraft_ephemeris import (STATUS_IN_GAP, STATUS_OUTSIDE_COVERAGE, STATUS_UNKNOWN_TARGET,
-                                                 target_posvel_bcrs_m)
+from stages.physics.spacecraft_ephemeris import target_posvel_bcrs_m
 
 LIGHT_TIME_BODIES = ltm.LIGHT_TIME_BODIES
 LEGS = ("down", "up")
 _XYZ = ("x", "y", "z")
 
-LT_OK, LT_NOT_CONVERGED, LT_INVALID = 0, 1, 2
 
 
 def _f64(name, unit, text):
@@ -131,8 +128,8 @@ class LightTime(Stage):
         bodies = ltm.selected_bodies(params)
         opts = ltm.solver_options(params)
 
-        def equal(name, value):  # vectorised in Arrow: no Python string comparisons per record
-            return np.asarray(pc.fill_null(pc.equal(table[name], value), False).to_numpy(zero_copy_only=False), dtype=bool)
+        def equal(name, value):
+            return ltm.text_equals(table, name, value)
 
         kinds = {
             "one": equal("observable", "range_one_way"),
@@ -154,18 +151,11 @@ class LightTime(Stage):
         target_status = np.zeros(n, dtype=np.uint8)
 
         def spacecraft(name):
-            def state(mjd, sod):
-                p, v, _ = target_posvel_bcrs_m(name, mjd, sod, eph, params["max_gap_s"], states)
-                return p, v
-            return state
+            return ltm.spacecraft_state_fn(name, eph, params, states)
 
         # groups of records sharing their ends: a loop over (kind, target[, receiving spacecraft]), not records
-        def codes(name):  # integer codes of a text column (sorting strings would cost more than the physics)
-            enc = pc.dictionary_encode(pc.fill_null(table[name], "")).combine_chunks()
-            return np.asarray(enc.indices.to_numpy(zero_copy_only=False)), enc.dictionary.to_pylist()
-
-        tcode, tnames = codes("target")
-        rcode, rnames = codes("station")
+        tcode, tnames = ltm.text_codes(table, "target")
+        rcode, rnames = ltm.text_codes(table, "station")
         groups = []
         for kind, mask in kinds.items():
             for tc in np.unique(tcode[mask]):
@@ -196,11 +186,7 @@ class LightTime(Stage):
             else:
                 if rcv is None:
                     site = tx_itrs[idx]
-
-                    def tx_fn(mjd, sod, _site=site):
-                        utc_m, utc_s, tt_m, tt_s, _ = times_from_tdb(mjd, sod, _site, leap, params["grid_step_s"])
-                        st = station_state(_site, utc_m, utc_s, tt_m, tt_s, mjd, sod, eph, params["grid_step_s"])
-                        return st.bcrs.pos_m, st.bcrs.vel_m_per_s
+                    tx_fn = ltm.StationStates(site, eph, leap, params["grid_step_s"])
                 else:
                     tx_fn = rx_fn
                 sol = lt.two_way_light_time(t3_mjd[idx], t3_sod[idx], rx_pos, sc_fn, tx_fn, bodies_fn,
@@ -247,12 +233,5 @@ class LightTime(Stage):
         out["lt_t1_tdb_mjd"] = pa.array(out["lt_t1_tdb_mjd"], pa.int32(), mask=~two)
         out["lt_iterations_down"] = pa.array(out["lt_iterations_down"], pa.int8(), mask=~solved)
         out["lt_iterations_up"] = pa.array(out["lt_iterations_up"], pa.int8(), mask=~two)
-        quarantine = {
-            "target_unknown": solved & (target_status == STATUS_UNKNOWN_TARGET),
-            "target_outside_coverage": solved & (target_status == STATUS_OUTSIDE_COVERAGE),
-            "target_in_gap": solved & (target_status == STATUS_IN_GAP),
-            # the light-time reasons only where the spacecraft ephemeris is not the cause
-            "light_time_not_converged": solved & (target_status == 0) & (out["lt_status"] == LT_NOT_CONVERGED),
-            "light_time_invalid": solved & (target_status == 0) & (out["lt_status"] == LT_INVALID),
-        }
-        return StageResult(columns=out, touched=solved, quarantine=quarantine)
+        return StageResult(columns=out, touched=solved,
+                           quarantine=ltm.target_quarantine(solved, target_status, out["lt_status"]))

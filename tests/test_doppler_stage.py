@@ -363,9 +363,9 @@ def test_gamma_estimate_is_in_the_manifest_and_partition_summary(tmp_path):
 
 
 def test_station_offset_plus_the_earth_is_the_station_state():
-    # barycentric.station_offset_m is station_state's x_BCRS without x_E (IERS TN36 ch. 11 form in
+    # StationState.offset_m is station_state's x_BCRS without x_E (IERS TN36 ch. 11 form in
     # earth_rotation.gcrs_to_bcrs): adding the Earth back must give the same position to its rounding
-    from stages.physics.barycentric import station_offset_m, station_state, times_from_tdb
+    from stages.physics.barycentric import station_state, times_from_tdb
     from stages.physics.ephemeris_grid import load_gridded_ephemeris
     from stages.physics.leap_seconds import load_leap_table
 
@@ -373,7 +373,7 @@ def test_station_offset_plus_the_earth_is_the_station_state():
     site = np.tile([[4.0e6, 1.2e6, 4.8e6]], (5, 1))
     mjd, sod = np.full(5, 60481), np.linspace(100.0, 80000.0, 5)
     utc_m, utc_s, tt_m, tt_s, _ = times_from_tdb(mjd, sod, site, leap)
-    off = station_offset_m(site, utc_m, utc_s, tt_m, tt_s, mjd, sod, eph)
-    full = station_state(site, utc_m, utc_s, tt_m, tt_s, mjd, sod, eph).bcrs.pos_m
+    st = station_state(site, utc_m, utc_s, tt_m, tt_s, mjd, sod, eph)
+    off, full = st.offset_m, st.bcrs.pos_m
     assert np.abs(off + eph.posvel_m("earth", mjd, sod)[0] - full).max() < 1e-4   # ulp at 1 au: 3e-5 m
     assert np.all(np.linalg.norm(off, axis=1) < 7e6)

@@ -8,12 +8,22 @@ from __future__ import annotations
 
 from typing import Any, Mapping
 
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+
 from stages.base import Param, StageContext
+from stages.physics import light_time as lt
+from stages.physics.barycentric import StationState, station_state, times_from_tdb
 from stages.physics.earth_orientation import eop_identity
 from stages.physics.ephemeris import load_planetary_ephemeris
 from stages.physics.file_cache import load_cached
 from stages.physics.leap_seconds import load_leap_table
-from stages.physics.spacecraft_ephemeris import StateTable, load_state_table
+from stages.physics.spacecraft_ephemeris import (STATUS_IN_GAP, STATUS_OUTSIDE_COVERAGE, STATUS_UNKNOWN_TARGET,
+                                                 StateTable, load_state_table, target_posvel_bcrs_m)
+
+#: light-time solution status
+SOLVED, NOT_CONVERGED, INVALID = lt.STATUS_OK, lt.STATUS_NOT_CONVERGED, lt.STATUS_INVALID
 
 #: bodies whose relativistic light-time term may be selected
 LIGHT_TIME_BODIES = ("sun", "moon", "jupiter", "saturn", "earth")
@@ -71,3 +81,83 @@ def model_identities(params: Mapping[str, Any], context: StageContext) -> dict[s
     if states is not None:
         ids["spacecraft states"] = states.identity
     return ids
+
+
+# ---------------------------------------------------------------------------
+# columns of a batch, vectorised in Arrow (no Python string comparison per record)
+# ---------------------------------------------------------------------------
+def text_equals(table: pa.Table, name: str, value: str) -> np.ndarray:
+    return np.asarray(pc.fill_null(pc.equal(table[name], value), False).to_numpy(zero_copy_only=False), dtype=bool)
+
+
+def text_codes(table: pa.Table, name: str) -> tuple[np.ndarray, list[str]]:
+    """Integer codes of a text column and the names they stand for (sorting strings would cost more than
+    the physics): records sharing an end are grouped by these, a loop over groups, not records."""
+    enc = pc.dictionary_encode(pc.fill_null(table[name], "")).combine_chunks()
+    return np.asarray(enc.indices.to_numpy(zero_copy_only=False)), enc.dictionary.to_pylist()
+
+
+# ---------------------------------------------------------------------------
+# the ends of a link
+# ---------------------------------------------------------------------------
+def spacecraft_state_fn(name: str, eph, params: Mapping[str, Any], states: StateTable | None):
+    """(mjd, sod) -> barycentric (pos, vel) of a state-table target or a body of the planetary ephemeris."""
+    def state(mjd, sod):
+        p, v, _ = target_posvel_bcrs_m(name, mjd, sod, eph, params["max_gap_s"], states)
+        return p, v
+    return state
+
+
+def spacecraft_displacement_fn(name: str, eph, params: Mapping[str, Any], states: StateTable | None):
+    """(mjd_a, sod_a, mjd_b, sod_b) -> p(b) - p(a), from the ephemerides' node-relative interpolation."""
+    def disp(ma, sa, mb, sb):
+        if states is not None and name in states:
+            d, _ = states.displacement_centre_m(name, ma, sa, mb, sb, params["max_gap_s"])
+            centre = states.centre(name)
+            return d if centre == "ssb" else d + eph.displacement_m(centre, ma, sa, mb, sb)
+        return eph.displacement_m(name, ma, sa, mb, sb)  # a body of the planetary ephemeris
+    return disp
+
+
+class StationStates:
+    """A ground station's barycentric state at TDB epochs: the epochs' UTC, TT and UT1 at the station
+    (``barycentric.times_from_tdb``), then ``barycentric.station_state``.  The last few epoch sets are
+    remembered, so that a Doppler count's displacement reuses the station states the light-time
+    solutions computed at the ends of the count instead of computing them again."""
+
+    def __init__(self, site_itrs_m: np.ndarray, eph, leap, grid_step_s: float, keep: int = 4):
+        self.site, self.eph, self.leap, self.grid = site_itrs_m, eph, leap, grid_step_s
+        self.keep = keep
+        self._memo: dict[tuple[bytes, bytes], StationState] = {}
+
+    def state(self, mjd, sod) -> StationState:
+        mjd, sod = np.asarray(mjd), np.asarray(sod, dtype=float)
+        key = (mjd.astype(np.int64).tobytes(), sod.tobytes())
+        st = self._memo.get(key)
+        if st is None:
+            utc_m, utc_s, tt_m, tt_s, _ = times_from_tdb(mjd, sod, self.site, self.leap, self.grid)
+            st = station_state(self.site, utc_m, utc_s, tt_m, tt_s, mjd, sod, self.eph, self.grid)
+            if len(self._memo) >= self.keep:
+                self._memo.pop(next(iter(self._memo)))
+            self._memo[key] = st
+        return st
+
+    def __call__(self, mjd, sod):
+        st = self.state(mjd, sod)
+        return st.bcrs.pos_m, st.bcrs.vel_m_per_s
+
+    def displacement_m(self, ma, sa, mb, sb) -> np.ndarray:
+        """x(b) - x(a): the Earth's displacement plus the change of the station's offset from it."""
+        return self.eph.displacement_m("earth", ma, sa, mb, sb) + (self.state(mb, sb).offset_m - self.state(ma, sa).offset_m)
+
+
+def target_quarantine(solved: np.ndarray, target_status: np.ndarray, solve_status: np.ndarray) -> dict[str, np.ndarray]:
+    """The quarantine masks of a light-time stage: why a record has no solution, the spacecraft ephemeris
+    first (its status at the solved or received epochs), the solver only where the ephemeris is not the cause."""
+    return {
+        "target_unknown": solved & (target_status == STATUS_UNKNOWN_TARGET),
+        "target_outside_coverage": solved & (target_status == STATUS_OUTSIDE_COVERAGE),
+        "target_in_gap": solved & (target_status == STATUS_IN_GAP),
+        "light_time_not_converged": solved & (target_status == 0) & (solve_status == NOT_CONVERGED),
+        "light_time_invalid": solved & (target_status == 0) & (solve_status == INVALID),
+    }

@@ -11,7 +11,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from stages.physics import time_scales as ts
-from stages.physics.earth_rotation import BcrsState, GcrsState, external_potential_at_geocentre, gcrs_to_bcrs, itrs_to_gcrs
+from stages.physics.earth_rotation import (BcrsState, GcrsState, bcrs_offset_m, external_potential_at_geocentre,
+                                          gcrs_to_bcrs, itrs_to_gcrs)
 from stages.physics.ephemeris import GM_M3_PER_S2, PlanetaryEphemeris
 from stages.physics.leap_seconds import LeapTable, tai_minus_utc_s
 
@@ -25,6 +26,10 @@ EXTERNAL_BODIES = ("sun", "jupiter")
 class StationState:
     gcrs: GcrsState
     bcrs: BcrsState
+    #: x_BCRS - x_E at the station's ~6e6 m scale (``earth_rotation.bcrs_offset_m``): with a displacement
+    #: of the Earth it gives the station's barycentric displacement between two events without forming
+    #: two positions of ~1.5e11 m (whose float64 rounding, 3e-5 m, would dominate a Doppler count)
+    offset_m: np.ndarray
 
 
 def station_state(x_itrs_m, utc_mjd, utc_sod_s, tt_mjd, tt_sod_s, tdb_mjd, tdb_sod_s,
@@ -42,20 +47,7 @@ def station_state(x_itrs_m, utc_mjd, utc_sod_s, tt_mjd, tt_sod_s, tdb_mjd, tdb_s
     bodies = [(planetary.posvel_m(b, tdb_mjd, tdb_sod_s)[0], GM_M3_PER_S2[b]) for b in EXTERNAL_BODIES]
     u_ext = external_potential_at_geocentre(earth_pos, bodies)
     bcrs = gcrs_to_bcrs(gcrs.pos_m, gcrs.vel_m_per_s, earth_pos, earth_vel, u_ext)
-    return StationState(gcrs, bcrs)
-
-
-def station_offset_m(x_itrs_m, utc_mjd, utc_sod_s, tt_mjd, tt_sod_s, tdb_mjd, tdb_sod_s,
-                     planetary: PlanetaryEphemeris, grid_step_s: float = 3600.0) -> np.ndarray:
-    """x_BCRS - x_E of a station, (n, 3) m: ``station_state`` without the Earth's barycentric position,
-    (1 - U_ext/c^2 - L_C) X - (v_E.X) v_E/(2 c^2) at the station's ~6e6 m scale.  With a displacement
-    of the Earth it gives the station's barycentric displacement between two events without forming
-    two positions of ~1.5e11 m (whose float64 rounding, 3e-5 m, would dominate a Doppler count)."""
-    gcrs = itrs_to_gcrs(x_itrs_m, utc_mjd, utc_sod_s, tt_mjd, tt_sod_s, grid_step_s=grid_step_s)
-    earth_pos, earth_vel = planetary.posvel_m("earth", tdb_mjd, tdb_sod_s)
-    bodies = [(planetary.posvel_m(b, tdb_mjd, tdb_sod_s)[0], GM_M3_PER_S2[b]) for b in EXTERNAL_BODIES]
-    u_ext = external_potential_at_geocentre(earth_pos, bodies)
-    return gcrs_to_bcrs(gcrs.pos_m, gcrs.vel_m_per_s, np.zeros_like(earth_pos), earth_vel, u_ext).pos_m
+    return StationState(gcrs, bcrs, bcrs_offset_m(gcrs.pos_m, earth_vel, u_ext))
 
 
 def tai_to_utc(tai_mjd, tai_sod_s, leap: LeapTable):

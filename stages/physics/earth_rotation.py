@@ -487,6 +487,19 @@ def gcrs_to_bcrs_position_terms_m(
     return terms
 
 
+def bcrs_offset_m(pos_gcrs_m, earth_vel_bcrs_m_per_s, external_potential_m2_per_s2,
+                  earth_acc_bcrs_m_per_s2=None) -> np.ndarray:
+    """x_BCRS - x_E of :func:`gcrs_to_bcrs`: X plus its c^-2 terms, formed at the point's own scale
+    (~6e6 m for a station), so that differences of it keep that scale's precision."""
+    x = np.asarray(pos_gcrs_m, dtype=np.float64)
+    terms = gcrs_to_bcrs_position_terms_m(x, earth_vel_bcrs_m_per_s, external_potential_m2_per_s2,
+                                          earth_acc_bcrs_m_per_s2)
+    corr = terms["scale_lc"] + terms["potential"] + terms["lorentz"]
+    if "acceleration" in terms:
+        corr = corr + terms["acceleration"]
+    return x + corr
+
+
 def gcrs_to_bcrs(
     pos_gcrs_m,
     vel_gcrs_m_per_s,
@@ -546,11 +559,7 @@ def gcrs_to_bcrs(
     ve = np.asarray(earth_vel_bcrs_m_per_s, dtype=np.float64)
     u = np.asarray(external_potential_m2_per_s2, dtype=np.float64)
 
-    terms = gcrs_to_bcrs_position_terms_m(x, ve, u, earth_acc_bcrs_m_per_s2)
-    corr = terms["scale_lc"] + terms["potential"] + terms["lorentz"]
-    if "acceleration" in terms:
-        corr = corr + terms["acceleration"]
-    pos = xe + (x + corr)
+    pos = xe + bcrs_offset_m(x, ve, u, earth_acc_bcrs_m_per_s2)
 
     ve_v = _dot(ve, vx)
     dtdt = 1.0 + K.L_C - (0.5 * _dot(ve, ve) + u) / _C2 - ve_v / _C2
