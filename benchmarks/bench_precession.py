@@ -14,7 +14,6 @@ from __future__ import annotations
 import argparse
 import sys
 import tempfile
-import time
 from pathlib import Path
 
 import numpy as np
@@ -23,14 +22,14 @@ import pyarrow.parquet as pq
 
 REPO = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO))
+sys.path.insert(0, str(Path(__file__).resolve().parent))
 
 from stages.physics.offline import configure_offline  # noqa: E402
 
 configure_offline()
 
+from bench_range_chain import run_ingest, timed  # noqa: E402
 from pipelines.demo_orbits import GYRO, START_MJD  # noqa: E402
-from pipelines.ingest import iter_ingest, output_schema, quarantine_schema  # noqa: E402
-from pipelines.parquet_io import AtomicParquetWriter  # noqa: E402
 from pipelines.tasks import stream_stage  # noqa: E402
 from stages.base import StageContext  # noqa: E402
 from stages.physics.leap_seconds import load_leap_table  # noqa: E402
@@ -53,12 +52,6 @@ def make_raw(path: Path, n: int, seed: int = 3) -> None:
     }), path, row_group_size=262144, compression="zstd")
 
 
-def timed(fn):
-    t0 = time.perf_counter()
-    out = fn()
-    return time.perf_counter() - t0, out
-
-
 def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--records", type=int, default=1_000_000)
@@ -73,14 +66,7 @@ def main() -> None:
         copy_s, _ = timed(lambda: pq.write_table(pq.read_table(raw), d / "copy.parquet", compression="zstd"))
 
         def ingest():
-            schema = pa.schema(list(pq.read_schema(raw)))
-            w = AtomicParquetWriter(d / "00.parquet", output_schema(schema), {"fingerprint": "bench"})
-            q = AtomicParquetWriter(d / "00.q.parquet", quarantine_schema(schema), {"fingerprint": "bench"})
-            for b in iter_ingest(raw, "orientation", leap, args.batch_rows):
-                w.write(b.good)
-                q.write(b.quarantined)
-            q.close()
-            w.close()
+            return run_ingest(raw, d / "00.parquet", d / "00.q.parquet", leap, args.batch_rows, "orientation")
 
         ingest_s, _ = timed(ingest)
         stage = Precession()

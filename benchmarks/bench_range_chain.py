@@ -114,13 +114,13 @@ def make_raw(path: Path, n: int, seed: int = 1) -> None:
     pq.write_table(table, path, row_group_size=262144, compression="zstd")
 
 
-def run_ingest(raw: Path, dst: Path, qdst: Path, leap, batch_rows: int) -> dict:
+def run_ingest(raw: Path, dst: Path, qdst: Path, leap, batch_rows: int, record_kind: str = "tracking") -> dict:
     """What IngestTask does: ingest batch by batch, records and quarantine written atomically."""
     schema = pa.schema(list(pq.read_schema(raw)))
     w = AtomicParquetWriter(dst, output_schema(schema), {"fingerprint": "bench"})
     q = AtomicParquetWriter(qdst, quarantine_schema(schema), {"fingerprint": "bench"})
     reasons: dict[str, int] = {}
-    for b in iter_ingest(raw, "tracking", leap, batch_rows):
+    for b in iter_ingest(raw, record_kind, leap, batch_rows):
         w.write(b.good)
         q.write(b.quarantined)
         _count_reasons(reasons, b.quarantined)
